@@ -1,0 +1,5 @@
+"""``python -m magvault`` works like the ``magvault`` console script."""
+
+from magvault.cli import main
+
+main(prog_name="magvault")

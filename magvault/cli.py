@@ -1,0 +1,414 @@
+"""The ``magvault`` command: a thin layer over :class:`magvault.Vault`.
+
+Every command parses its options, calls one Vault method and prints.  Listing
+commands take ``--json`` and then print exactly one JSON document on stdout.
+Exit codes: 0 success; 1 a value magvault refused (one line on stderr naming
+what to fix); 2 a usage error reported by the option parser.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+import os
+import sys
+from typing import Any
+
+import click
+
+from . import __version__
+from .errors import MagvaultError
+from .services.events import jsonable
+from .store.models import RUN_KINDS, SPECIMEN_KINDS
+
+DEFAULT_DB = "magvault.db"
+
+
+class State:
+    def __init__(self, db: str):
+        self.db = db
+        self._vault = None
+
+    def vault(self, *, create: bool = False):
+        if self._vault is None:
+            from .vault import open_vault
+
+            self._vault = open_vault(self.db, create=create)
+        return self._vault
+
+    def close(self) -> None:
+        if self._vault is not None:
+            self._vault.close()
+
+
+class VaultGroup(click.Group):
+    """Turns magvault's own errors into exit code 1 with a one-line message."""
+
+    def invoke(self, ctx: click.Context):
+        try:
+            return super().invoke(ctx)
+        except MagvaultError as exc:
+            raise click.ClickException(exc.message.replace("\n", " ")) from None
+        except (click.exceptions.Exit, click.ClickException, click.Abort):
+            raise
+        except KeyboardInterrupt:
+            raise click.Abort() from None
+        except Exception as exc:  # a bug, not bad input: still no traceback unless asked
+            if os.environ.get("MAGVAULT_DEBUG"):
+                raise
+            raise click.ClickException(f"internal error ({type(exc).__name__}: {exc}); "
+                                       "set MAGVAULT_DEBUG=1 to see where") from None
+
+
+def emit_json(doc: Any) -> None:
+    click.echo(json.dumps(clean(doc), allow_nan=False, indent=1, ensure_ascii=False))
+
+
+def clean(value: Any) -> Any:
+    """JSON-safe values: NaN and pandas' missing values become null."""
+    try:
+        import pandas as pd
+
+        if isinstance(value, pd.DataFrame):
+            return [clean(r) for r in value.to_dict(orient="records")]
+        if value is pd.NA or value is pd.NaT:
+            return None
+    except ImportError:  # pragma: no cover
+        pass
+    if isinstance(value, float) and not math.isfinite(value):
+        return None
+    if isinstance(value, dict):
+        return {str(k): clean(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return [clean(v) for v in value]
+    return jsonable(value) if not isinstance(value, (str, int, bool, type(None))) else value
+
+
+def echo_table(rows: list[dict[str, Any]], columns: list[str]) -> None:
+    if not rows:
+        click.echo("(none)")
+        return
+    text = [[_cell(r.get(c)) for c in columns] for r in rows]
+    widths = [max(len(c), *(len(t[i]) for t in text)) for i, c in enumerate(columns)]
+    click.echo("  ".join(c.ljust(w) for c, w in zip(columns, widths)).rstrip())
+    for t in text:
+        click.echo("  ".join(v.ljust(w) for v, w in zip(t, widths)).rstrip())
+
+
+def _cell(value: Any) -> str:
+    value = clean(value)
+    if value is None:
+        return "-"
+    if isinstance(value, float):
+        return f"{value:.6g}"
+    if isinstance(value, (dict, list)):
+        return json.dumps(value)[:40]
+    return str(value)
+
+
+def warn(message: str) -> None:
+    click.echo(f"warning: {message}", err=True)
+
+
+json_option = click.option("--json", "as_json", is_flag=True, help="Print one JSON document instead of a table.")
+pass_state = click.make_pass_decorator(State)
+
+
+@click.group(cls=VaultGroup, context_settings={"help_option_names": ["-h", "--help"]})
+@click.option("--db", envvar="MAGVAULT_DB", default=DEFAULT_DB, show_default=True, metavar="PATH_OR_URL",
+              help="SQLite file or SQLAlchemy URL (postgresql+psycopg://...); MAGVAULT_DB also sets it.")
+@click.version_option(__version__, prog_name="magvault")
+@click.pass_context
+def main(ctx: click.Context, db: str) -> None:
+    """magvault: specimens, runs and derived transitions of magnetic minerals, with their provenance."""
+    ctx.obj = ctx.with_resource(_closing(State(db)))
+
+
+class _closing:
+    def __init__(self, state: State):
+        self.state = state
+
+    def __enter__(self) -> State:
+        return self.state
+
+    def __exit__(self, *exc) -> None:
+        self.state.close()
+
+
+# --- vault ------------------------------------------------------------------------------------
+
+@main.command()
+@pass_state
+def init(state: State) -> None:
+    """Create the vault (or upgrade its schema to this version)."""
+    vault = state.vault(create=True)
+    click.echo(f"vault ready: {vault!r}")
+
+
+# --- specimens ----------------------------------------------------------------------------------
+
+@main.group()
+def specimen() -> None:
+    """Register specimens and pieces cut from them; list and show them."""
+
+
+@specimen.command("add")
+@click.argument("code")
+@click.option("--parent", metavar="CODE", help="The specimen this piece was cut from.")
+@click.option("--mass", metavar="QTY", help="Mass with unit, e.g. '12.5 mg' or '12.50+/-0.02 mg'.")
+@click.option("--kind", type=click.Choice(SPECIMEN_KINDS), help="What sort of piece it is.")
+@click.option("--dims", metavar="TEXT", help="Dimensions, e.g. '2.1 x 1.5 x 0.8 mm' (optionally '+/- 0.05 mm').")
+@click.option("--origin", metavar="NAME", help="Where the material came from (created when new).")
+@click.option("--storage", metavar="TEXT", help="Where the piece is kept.")
+@click.option("--notes", metavar="TEXT")
+@click.option("--same-orientation", is_flag=True, help="The piece keeps its parent's crystal orientation.")
+@pass_state
+def specimen_add(state: State, code, parent, mass, kind, dims, origin, storage, notes, same_orientation) -> None:
+    """Add specimen CODE."""
+    out = state.vault().add_specimen(code, parent=parent, mass=mass, kind=kind, dims=dims, origin=origin,
+                                     storage=storage, notes=notes, same_orientation=same_orientation)
+    for w in out["warnings"]:
+        warn(w)
+    click.echo(f"added specimen {out['code']}" + (f" (cut from {out['parent']})" if out["parent"] else ""))
+
+
+@specimen.command("list")
+@json_option
+@pass_state
+def specimen_list(state: State, as_json: bool) -> None:
+    """List specimens with parent, kind, mass and composition."""
+    frame = state.vault().specimens()
+    if as_json:
+        emit_json(frame)
+    else:
+        echo_table(clean(frame), ["code", "parent", "kind", "mass_kg", "origin", "x", "superstructure", "n_runs"])
+
+
+@specimen.command("show")
+@click.argument("code")
+@json_option
+@pass_state
+def specimen_show(state: State, code: str, as_json: bool) -> None:
+    """Show one specimen: lineage tree, orientation, compositions, treatments and runs."""
+    doc = state.vault().specimen(code)
+    if as_json:
+        emit_json(doc)
+        return
+    from .textviews import specimen_text
+
+    click.echo(specimen_text(doc))
+
+
+# --- runs ---------------------------------------------------------------------------------------
+
+@main.command("runs")
+@click.option("--specimen", metavar="CODE")
+@click.option("--kind", type=click.Choice(RUN_KINDS))
+@click.option("--status", type=click.Choice(("planned", "running", "recorded", "superseded", "retracted")))
+@json_option
+@pass_state
+def runs_cmd(state: State, specimen, kind, status, as_json) -> None:
+    """List runs (id, specimen, kind, status, started)."""
+    frame = state.vault().runs(specimen=specimen, kind=kind, status=status)
+    if as_json:
+        emit_json(frame)
+    else:
+        echo_table(clean(frame), ["id", "specimen", "kind", "status", "started", "source_name", "n_rows"])
+
+
+@main.group()
+def run() -> None:
+    """Log a run before its file exists; retract or supersede runs; show one."""
+
+
+@run.command("log")
+@click.option("--specimen", required=True, metavar="CODE")
+@click.option("--kind", required=True, type=click.Choice(RUN_KINDS))
+@click.option("--status", type=click.Choice(("planned", "running")), default="planned", show_default=True)
+@click.option("--started", metavar="ISO8601", help="Start time (UTC when no zone is given).")
+@click.option("--instrument", metavar="NAME")
+@click.option("--operator", metavar="NAME")
+@click.option("--direction", metavar="X|Y|Z|x,y,z", help="Applied field or beam direction in the specimen frame.")
+@click.option("--group", metavar="LABEL", help="Ties runs measured together (e.g. three axes of one sweep).")
+@click.option("--notes", metavar="TEXT")
+@pass_state
+def run_log(state: State, specimen, kind, status, started, instrument, operator, direction, group, notes) -> None:
+    """Log a planned or running run; prints its id."""
+    run_id = state.vault().log_run(specimen, kind, status=status, started=started, instrument=instrument,
+                                   operator=operator, direction=direction, group=group, notes=notes)
+    click.echo(run_id)
+
+
+@run.command("retract")
+@click.argument("run_id", metavar="ID")
+@click.option("--reason", required=True, metavar="TEXT")
+@pass_state
+def run_retract(state: State, run_id, reason) -> None:
+    """Retract run ID (it stays in the vault, out of every estimate)."""
+    state.vault().retract_run(run_id, reason=reason)
+    click.echo(f"run {run_id} retracted")
+
+
+@run.command("supersede")
+@click.argument("run_id", metavar="ID")
+@click.option("--by", "by", required=True, metavar="ID", help="The run that replaces it.")
+@click.option("--reason", metavar="TEXT")
+@pass_state
+def run_supersede(state: State, run_id, by, reason) -> None:
+    """Mark run ID superseded by another run of the same specimen."""
+    state.vault().supersede_run(run_id, by=by, reason=reason)
+    click.echo(f"run {run_id} superseded by run {by}")
+
+
+@run.command("show")
+@click.argument("run_id", metavar="ID")
+@json_option
+@pass_state
+def run_show(state: State, run_id, as_json) -> None:
+    """Show one run: conditions, raw file, series versions."""
+    doc = state.vault().run(run_id)
+    if as_json:
+        emit_json(doc)
+    else:
+        for key, value in doc.items():
+            click.echo(f"{key:>14}: {_cell(value) if not isinstance(value, (dict, list)) else json.dumps(clean(value))}")
+
+
+@main.command()
+@click.argument("file", type=click.Path(dir_okay=False))
+@click.option("--specimen", metavar="CODE", help="Specimen measured (new run).")
+@click.option("--kind", type=click.Choice(RUN_KINDS), help="Run kind (new run).")
+@click.option("--run", "run_id", metavar="ID", help="Attach the file to a run logged earlier as planned or running.")
+@click.option("--profile", metavar="NAME", help="A saved column mapping.")
+@click.option("--shape", type=click.Choice(("delimited", "sectioned", "commented", "blocks", "spreadsheet")),
+              help="Force the shape instead of sniffing it.")
+@click.option("--map", "mapping", metavar="'COL=target,...'", help="Correct the guessed mapping, e.g. 'Temp=temperature_K'.")
+@click.option("--direction", metavar="X|Y|Z|x,y,z")
+@click.option("--group", metavar="LABEL")
+@click.option("--instrument", metavar="NAME")
+@click.option("--encoding", metavar="NAME", help="Text encoding when it cannot be detected (e.g. utf-16-le).")
+@click.option("--sheet", metavar="NAME", help="Spreadsheet sheet (default: the first).")
+@click.option("--set", "overrides", multiple=True, metavar="KEY=VALUE",
+              help="Run condition overriding the file, e.g. 'field=0.1 T', 'wavelength=Cu K-alpha1'.")
+@click.option("--again", is_flag=True, help="Import bytes already imported for this specimen as a new run.")
+@click.option("--preview", is_flag=True, help="Show the guessed shape, mapping and first rows; write nothing.")
+@pass_state
+def ingest(state: State, file, specimen, kind, run_id, profile, shape, mapping, direction, group, instrument,
+           encoding, sheet, overrides, again, preview) -> None:
+    """Import an instrument export FILE; prints the new run id."""
+    vault = state.vault()
+    if preview:
+        if not kind and run_id:
+            kind = vault.run(run_id)["kind"]
+        if not kind:
+            raise click.UsageError("--preview needs --kind (or --run)")
+        parsed = vault.preview(file, kind=kind, profile=profile, shape=shape, mapping=mapping, encoding=encoding,
+                               sheet=sheet, overrides=list(overrides))
+        click.echo(parsed.preview())
+        return
+    report = vault.ingest(file, specimen=specimen, kind=kind, run=run_id, profile=profile, shape=shape,
+                          mapping=mapping, direction=direction, group=group, instrument=instrument,
+                          encoding=encoding, sheet=sheet, overrides=list(overrides), again=again)
+    for w in report.warnings:
+        warn(w)
+    click.echo(report.run_id)
+
+
+# --- registry context -----------------------------------------------------------------------------
+
+@main.group()
+def treatment() -> None:
+    """Record anneals, quenches, irradiations... done to a specimen."""
+
+
+@treatment.command("add")
+@click.argument("code")
+@click.option("--kind", required=True, metavar="KIND", help="anneal, quench, irradiation, polishing, ...")
+@click.option("--at", required=True, metavar="ISO8601", help="When it was done (UTC when no zone is given).")
+@click.option("--set", "conditions", multiple=True, metavar="KEY=VALUE",
+              help="temperature=573K, duration=2h, atmosphere=argon, ...")
+@click.option("--notes", metavar="TEXT")
+@pass_state
+def treatment_add(state: State, code, kind, at, conditions, notes) -> None:
+    """Record a treatment of specimen CODE."""
+    state.vault().add_treatment(code, kind=kind, at=at, conditions=list(conditions), notes=notes)
+    click.echo(f"recorded {kind} of {code}")
+
+
+@main.group()
+def instrument() -> None:
+    """Describe the lab's instruments and their calibrations."""
+
+
+@instrument.command("add")
+@click.argument("name")
+@click.option("--kind", required=True, type=click.Choice(("magnetometer", "ultrasound", "diffractometer",
+                                                         "calorimeter", "other")))
+@click.option("--place", metavar="TEXT")
+@click.option("--notes", metavar="TEXT")
+@pass_state
+def instrument_add(state: State, name, kind, place, notes) -> None:
+    """Add instrument NAME (the lab's own name for it)."""
+    state.vault().add_instrument(name, kind=kind, place=place, notes=notes)
+    click.echo(f"added instrument {name}")
+
+
+@instrument.command("calibrate")
+@click.argument("name")
+@click.option("--at", required=True, metavar="ISO8601")
+@click.option("--note", metavar="TEXT")
+@click.option("--file", type=click.Path(dir_okay=False), help="Calibration record, kept in the raw store.")
+@pass_state
+def instrument_calibrate(state: State, name, at, note, file) -> None:
+    """Record a calibration of instrument NAME."""
+    state.vault().calibrate_instrument(name, at=at, note=note, file=file)
+    click.echo(f"recorded calibration of {name}")
+
+
+@instrument.command("list")
+@json_option
+@pass_state
+def instrument_list(state: State, as_json) -> None:
+    """List instruments with their calibrations."""
+    rows = state.vault().instruments()
+    if as_json:
+        emit_json(rows)
+    else:
+        echo_table(rows, ["name", "kind", "place"])
+
+
+# --- catalogue and log -----------------------------------------------------------------------------
+
+@main.command()
+@json_option
+@pass_state
+def kinds(state: State, as_json) -> None:
+    """List the transition kinds (id, typical range, search window, run kinds)."""
+    rows = state.vault().kinds()
+    if as_json:
+        emit_json(rows)
+    else:
+        echo_table([{**r, "typical_K": "%g-%g" % tuple(r["typical_K"]), "window_K": "%g-%g" % tuple(r["window_K"]),
+                     "run_kinds": ",".join(r["run_kinds"])} for r in rows],
+                   ["id", "name", "typical_K", "window_K", "run_kinds"])
+
+
+@main.command("events")
+@click.option("--specimen", metavar="CODE")
+@click.option("--user", metavar="NAME")
+@click.option("--since", metavar="ISO8601")
+@click.option("--until", metavar="ISO8601")
+@click.option("--limit", type=click.IntRange(min=1), help="Only the newest N events.")
+@json_option
+@pass_state
+def events_cmd(state: State, specimen, user, since, until, limit, as_json) -> None:
+    """Show the audit log (append-only)."""
+    frame = state.vault().events(specimen=specimen, user=user, since=since, until=until, limit=limit)
+    if as_json:
+        emit_json(frame)
+    else:
+        echo_table(clean(frame), ["id", "at", "user", "action", "entity", "entity_id", "specimen", "message"])
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(main(prog_name="magvault"))

@@ -1,0 +1,346 @@
+"""The service API: the one way in for the CLI, the web app and notebooks.
+
+>>> import magvault
+>>> vault = magvault.open("magvault.db")          # or a postgresql+psycopg:// URL
+>>> vault.specimens()                              # pandas DataFrames with units in column names
+>>> vault.series(run_id)
+
+Each public method is one unit of work: it opens a session, validates its input
+(marshmallow, at the boundary), calls the service functions and commits, or
+rolls back completely when anything fails.  Nothing here formats output.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import datetime as dt
+import mimetypes
+import os
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any, Iterator
+
+import pandas as pd
+from sqlalchemy import Engine, func, select
+from sqlalchemy.exc import IntegrityError, OperationalError
+from sqlalchemy.orm import Session, sessionmaker
+
+from . import schemas
+from .errors import Duplicate, InvalidValue, MagvaultError, MissingDatabase, NotFound
+from .services import events as event_log
+from .services import listing, registry, runs as run_service
+from .store import schema as db_schema
+from .store.engine import database_url, make_engine, sqlite_path, writer
+from .store.models import Event, Run, TransitionKind
+from .timeutil import iso, now
+
+__all__ = ["Vault", "open_vault", "IngestReport"]
+
+
+@dataclass(frozen=True)
+class IngestReport:
+    """What an import did: the run it wrote and what the reader made of the file."""
+
+    run_id: int
+    specimen: str
+    kind: str
+    sha256: str
+    shape: str
+    rows: int
+    columns: tuple[str, ...]
+    reused_bytes: bool
+    warnings: tuple[str, ...] = ()
+    conditions: dict[str, Any] = field(default_factory=dict)
+
+
+def open_vault(path_or_url: str | os.PathLike, *, create: bool = False) -> "Vault":
+    """Open a vault; a missing SQLite file is refused unless ``create=True``.
+
+    ``create=True`` creates the file (or an empty server database's tables) and
+    upgrades the schema to the newest revision.
+    """
+    url = database_url(path_or_url)
+    path = sqlite_path(url)
+    if path is not None and not path.exists():
+        if not create:
+            raise MissingDatabase(f"no vault at {path}; create one with `magvault --db {path} init` "
+                                  "(or magvault.open(path, create=True))")
+        path.parent.mkdir(parents=True, exist_ok=True)
+    engine = make_engine(url)
+    try:
+        current = db_schema.current_revision(engine)
+    except OperationalError as exc:
+        engine.dispose()
+        raise MissingDatabase(f"cannot open database {_safe(url)}: {str(exc.orig).strip().splitlines()[0]}") from None
+    head = db_schema.head_revision(url)
+    if current != head:
+        if create:
+            db_schema.upgrade(url)
+        elif current is None:
+            engine.dispose()
+            raise MissingDatabase(f"{_safe(url)} holds no vault yet; run `magvault --db {_safe(url)} init`")
+        else:
+            engine.dispose()
+            raise MissingDatabase(f"{_safe(url)} is at schema revision {current}, this magvault needs {head}; "
+                                  f"run `magvault --db {_safe(url)} init` to upgrade")
+    return Vault(engine, url)
+
+
+def _safe(url: str) -> str:
+    from sqlalchemy.engine import make_url
+
+    u = make_url(url)
+    if u.get_backend_name() == "sqlite":
+        return u.database or url
+    return u.render_as_string(hide_password=True)
+
+
+class Vault:
+    """A magvault database.  Open it with :func:`magvault.open`."""
+
+    def __init__(self, engine: Engine, url: str):
+        self.engine = engine
+        self.url = url
+        self._sessions = sessionmaker(bind=engine, expire_on_commit=False)
+        self._writer = writer(engine)
+
+    # -- units of work --------------------------------------------------------------------
+
+    @contextlib.contextmanager
+    def write(self) -> Iterator[Session]:
+        """One write transaction (on SQLite it takes the write lock at BEGIN)."""
+        with self._sessions(bind=self._writer) as session:
+            try:
+                with session.begin():
+                    yield session
+            except IntegrityError as exc:
+                raise _integrity_message(exc) from None
+
+    @contextlib.contextmanager
+    def read(self) -> Iterator[Session]:
+        with self._sessions() as session:
+            with session.begin():
+                yield session
+
+    def close(self) -> None:
+        self.engine.dispose()
+
+    def __enter__(self) -> "Vault":
+        return self
+
+    def __exit__(self, *exc) -> None:
+        self.close()
+
+    def __repr__(self) -> str:
+        return f"<Vault {_safe(self.url)}>"
+
+    @property
+    def backend(self) -> str:
+        return self.engine.dialect.name
+
+    # -- specimens ------------------------------------------------------------------------
+
+    def add_specimen(self, code: str, *, parent: str | None = None, mass: str | None = None,
+                     kind: str | None = None, dims: str | None = None, origin: str | None = None,
+                     storage: str | None = None, notes: str | None = None, same_orientation: bool = False,
+                     created: str | dt.datetime | None = None) -> dict[str, Any]:
+        """Register a specimen (a piece cut from ``parent`` when given).
+
+        ``mass`` is text with a unit such as ``'12.5 mg'`` or ``'12.50+/-0.02 mg'``;
+        ``dims`` such as ``'2.1 x 1.5 x 0.8 mm'``.  Returns the specimen's summary
+        with a ``warnings`` list (for example children heavier than their parent).
+        """
+        data = schemas.load(schemas.SpecimenIn(), dict(
+            code=code, parent=parent, mass=mass, kind=kind, dims=dims, origin=origin, storage=storage,
+            notes=notes, same_orientation=same_orientation, created=created))
+        with self.write() as s:
+            specimen, notes_ = registry.add_specimen(s, data)
+            out = registry.specimen_summary(specimen)
+        return {**out, "warnings": notes_}
+
+    def specimen(self, code: str) -> dict[str, Any]:
+        """Everything about one specimen: lineage, orientation, compositions, treatments, runs."""
+        with self.read() as s:
+            return listing.specimen_detail(s, code)
+
+    def specimens(self) -> pd.DataFrame:
+        """One row per specimen (code, parent, kind, mass_kg, origin, x, superstructure, ...)."""
+        with self.read() as s:
+            return listing.specimens_frame(s)
+
+    def origins(self) -> list[dict[str, Any]]:
+        with self.read() as s:
+            return registry.origins(s)
+
+    def add_origin(self, name: str, *, kind: str | None = None, notes: str | None = None) -> None:
+        if not name or not str(name).strip():
+            raise InvalidValue("origin: give a name", field="origin")
+        with self.write() as s:
+            registry.ensure_origin(s, name.strip(), kind, notes)
+
+    # -- treatments, instruments -----------------------------------------------------------
+
+    def add_treatment(self, specimen: str, *, kind: str, at: str | dt.datetime,
+                      conditions: list[str] | dict[str, Any] | None = None, notes: str | None = None) -> int:
+        """Record a treatment (anneal, quench, irradiation...) at a time, with SI conditions."""
+        data = schemas.load(schemas.TreatmentIn(), dict(specimen=specimen, kind=kind, at=at, notes=notes))
+        conds = registry.parse_treatment_conditions(conditions)
+        with self.write() as s:
+            return registry.add_treatment(s, data["specimen"], data["kind"], data["at"], conds, data["notes"]).id
+
+    def add_instrument(self, name: str, *, kind: str, place: str | None = None, notes: str | None = None) -> None:
+        data = schemas.load(schemas.InstrumentIn(), dict(name=name, kind=kind, place=place, notes=notes))
+        with self.write() as s:
+            registry.add_instrument(s, data)
+
+    def calibrate_instrument(self, name: str, *, at: str | dt.datetime, note: str | None = None,
+                             file: str | os.PathLike | None = None) -> None:
+        data = schemas.load(schemas.CalibrationIn(), dict(name=name, at=at, note=note))
+        blob = _read_file(file) if file else None
+        with self.write() as s:
+            raw = (run_service.store_raw(s, blob, Path(file).name, _media_type(Path(file).name))
+                   if blob is not None else None)
+            registry.calibrate_instrument(s, data["name"], data["at"], data["note"],
+                                          raw.id if raw else None, Path(file).name if file else None)
+
+    def instruments(self) -> list[dict[str, Any]]:
+        with self.read() as s:
+            return registry.instruments(s)
+
+    # -- runs -----------------------------------------------------------------------------
+
+    def log_run(self, specimen: str, kind: str, *, status: str = "planned", started: str | None = None,
+                instrument: str | None = None, operator: str | None = None, direction: str | None = None,
+                group: str | None = None, notes: str | None = None) -> int:
+        """Log a run before its file exists (status ``planned`` or ``running``); returns its id."""
+        data = schemas.load(schemas.RunLogIn(), dict(
+            specimen=specimen, kind=kind, status=status, started=started, instrument=instrument,
+            operator=operator, direction=direction, group=group, notes=notes))
+        with self.write() as s:
+            spec = registry.get_specimen(s, data["specimen"])
+            inst = registry.get_instrument(s, data.get("instrument"))
+            return run_service.log_run(s, spec, data, inst.id if inst else None).id
+
+    def ingest(self, path: str | os.PathLike | None = None, *, specimen: str | None = None,
+               kind: str | None = None, run: int | None = None, data: bytes | None = None,
+               source_name: str | None = None, profile: str | None = None, shape: str | None = None,
+               mapping: str | dict[str, str] | None = None, direction: str | None = None,
+               group: str | None = None, instrument: str | None = None, encoding: str | None = None,
+               sheet: str | None = None, overrides: list[str] | dict[str, Any] | None = None,
+               again: bool = False, operator: str | None = None) -> IngestReport:
+        """Import one export: a new run of ``specimen`` and ``kind``, or the file of logged run ``run``.
+
+        Everything is checked before anything is written; the raw bytes, the run,
+        its series and the event land in one transaction.  The same bytes for the
+        same specimen are refused as a duplicate (naming the run) unless ``again``.
+        """
+        from .services import importing
+
+        return importing.ingest(self, path, specimen=specimen, kind=kind, run=run, data=data,
+                                source_name=source_name, profile=profile, shape=shape, mapping=mapping,
+                                direction=direction, group=group, instrument=instrument, encoding=encoding,
+                                sheet=sheet, overrides=overrides, again=again, operator=operator)
+
+    def preview(self, path: str | os.PathLike | None = None, *, kind: str, data: bytes | None = None,
+                source_name: str | None = None, profile: str | None = None, shape: str | None = None,
+                mapping: str | dict[str, str] | None = None, encoding: str | None = None,
+                sheet: str | None = None, overrides: list[str] | dict[str, Any] | None = None):
+        """Read an export as :meth:`ingest` would, without writing anything; returns the parsed export."""
+        from .services import importing
+
+        return importing.parse(self, path, kind=kind, data=data, source_name=source_name, profile=profile,
+                               shape=shape, mapping=mapping, encoding=encoding, sheet=sheet, overrides=overrides)
+
+    def retract_run(self, run_id: int, *, reason: str) -> None:
+        """Mark a run retracted (nothing is deleted); the reason goes to the event log."""
+        data = schemas.load(schemas.ReasonIn(), {"reason": reason})
+        with self.write() as s:
+            run_service.retract(s, _run_id(run_id), data["reason"])
+
+    def supersede_run(self, run_id: int, *, by: int, reason: str | None = None) -> None:
+        """Mark a run superseded by a newer run of the same specimen."""
+        with self.write() as s:
+            run_service.supersede(s, _run_id(run_id), _run_id(by, "by"), reason)
+
+    def run(self, run_id: int) -> dict[str, Any]:
+        with self.read() as s:
+            return listing.run_detail(s, _run_id(run_id))
+
+    def runs(self, *, specimen: str | None = None, kind: str | None = None,
+             status: str | None = None, include_retracted: bool = True) -> pd.DataFrame:
+        """Runs with an integer ``id`` column, newest last."""
+        with self.read() as s:
+            return listing.runs_frame(s, specimen=specimen, kind=kind, status=status,
+                                      include_retracted=include_retracted)
+
+    def series(self, run_id: int, *, version: int | None = None) -> pd.DataFrame:
+        """The run's normalised data: SI columns named with their units (``temperature_K``...)."""
+        with self.read() as s:
+            return run_service.read_series(s, _run_id(run_id), version)
+
+    def raw_file(self, sha256: str) -> tuple[bytes, str, str]:
+        """The exact stored bytes for a SHA-256, with their first file name and media type."""
+        with self.read() as s:
+            return listing.raw_file(s, sha256)
+
+    # -- catalogue and log ------------------------------------------------------------------
+
+    def kinds(self) -> list[dict[str, Any]]:
+        """The transition catalogue: id, name, typical_K, window_K, run_kinds."""
+        with self.read() as s:
+            return [{"id": k.id, "name": k.name, "typical_K": [k.typical_lo_K, k.typical_hi_K],
+                     "window_K": [k.window_lo_K, k.window_hi_K], "run_kinds": list(k.run_kinds),
+                     "mineral": k.mineral, "note": k.note, "seeded": k.seeded}
+                    for k in s.scalars(select(TransitionKind).order_by(TransitionKind.window_lo_K))]
+
+    def events(self, *, specimen: str | None = None, user: str | None = None,
+               since: str | dt.datetime | None = None, until: str | dt.datetime | None = None,
+               limit: int | None = None) -> pd.DataFrame:
+        """The audit log, oldest first, filterable by specimen, user and date."""
+        from .timeutil import parse_datetime
+
+        since_dt = parse_datetime(since, field="since") if since else None
+        until_dt = parse_datetime(until, field="until") if until else None
+        with self.read() as s:
+            return listing.events_frame(s, specimen=specimen, user=user, since=since_dt, until=until_dt,
+                                        limit=limit)
+
+    def counts(self) -> dict[str, int]:
+        with self.read() as s:
+            return registry.count_rows(s)
+
+
+def _run_id(value: Any, field: str = "run") -> int:
+    try:
+        number = int(str(value).strip())
+    except (TypeError, ValueError):
+        raise InvalidValue(f"{field}: run ids are whole numbers, got {value!r}", field=field) from None
+    if number <= 0:
+        raise InvalidValue(f"{field}: run ids are positive, got {value!r}", field=field)
+    return number
+
+
+def _read_file(path: str | os.PathLike) -> bytes:
+    p = Path(path)
+    if not p.exists():
+        raise InvalidValue(f"{p}: no such file", field="file")
+    if p.is_dir():
+        raise InvalidValue(f"{p}: is a folder, not a file", field="file")
+    try:
+        return p.read_bytes()
+    except OSError as exc:
+        raise InvalidValue(f"{p}: cannot read ({exc.strerror})", field="file") from None
+
+
+def _media_type(name: str) -> str:
+    guessed, _ = mimetypes.guess_type(name)
+    if name.lower().endswith(".xlsx"):
+        return "application/vnd.openxmlformats-officedocument.spreadsheetml.sheet"
+    return guessed or "application/octet-stream"
+
+
+def _integrity_message(exc: IntegrityError) -> MagvaultError:
+    text = str(exc.orig).lower()
+    if "unique" in text or "duplicate" in text:
+        return Duplicate(f"that record already exists ({str(exc.orig).strip().splitlines()[0]})")
+    return InvalidValue(f"the database refused the change: {str(exc.orig).strip().splitlines()[0]}")

@@ -1,0 +1,1 @@
+"""Alembic migrations of the vault schema (installed as ``magvault.migrations``)."""
