@@ -145,6 +145,40 @@ def init(state: State) -> None:
     click.echo(f"vault ready: {vault!r}")
 
 
+@main.command()
+@click.option("--no-serve", is_flag=True, help="Build the demo and stop (do not open the dashboard).")
+@click.option("--out", "out_dir", default=".", show_default=True, type=click.Path(file_okay=False),
+              help="Folder for magvault-demo.db and the magvault-demo/ exports and manifest.")
+@click.option("--seed", type=int, default=None, help="Seed of the invented collection.")
+@click.option("--host", default="127.0.0.1", show_default=True)
+@click.option("--port", default=5000, show_default=True, type=click.IntRange(0, 65535))
+def demo(no_serve, out_dir, seed, host, port) -> None:
+    """Build the invented demo collection (and serve its dashboard)."""
+    from . import demo as demo_builder
+
+    kwargs = {"seed": seed} if seed is not None else {}
+    summary = demo_builder.build(out_dir, progress=lambda m: click.echo(f"... {m}", err=True), **kwargs)
+    click.echo(summary.text())
+    if not no_serve:
+        _serve(str(summary.database), host, port)
+
+
+@main.command()
+@click.option("--host", default="127.0.0.1", show_default=True, help="Address to bind (local only by default).")
+@click.option("--port", default=5000, show_default=True, type=click.IntRange(0, 65535))
+@pass_state
+def serve(state: State, host, port) -> None:
+    """Serve the dashboard for this vault."""
+    state.vault()  # refuse a missing vault before starting the server
+    _serve(state.db, host, port)
+
+
+def _serve(db: str, host: str, port: int) -> None:
+    from .paths import part
+
+    part("webui").serve(db, host=host, port=port)
+
+
 # --- specimens ----------------------------------------------------------------------------------
 
 @main.group()
@@ -315,6 +349,63 @@ def ingest(state: State, file, specimen, kind, run_id, profile, shape, mapping, 
 
 
 # --- registry context -----------------------------------------------------------------------------
+
+@main.group()
+def composition() -> None:
+    """Record composition analyses; x in Fe(1-x)S is derived with its uncertainty."""
+
+
+@composition.command("add")
+@click.argument("code")
+@click.option("--method", required=True, metavar="NAME", help="microprobe, wet chemistry, diffraction, ...")
+@click.option("--wt", multiple=True, metavar="EL=V[+/-U]", help="Element in wt%, e.g. Fe=60.5+/-0.3 (repeat).")
+@click.option("--at", "at_", multiple=True, metavar="EL=V[+/-U]", help="Element in at%, e.g. Fe=46.7+/-0.2 (repeat).")
+@click.option("--d102", metavar="QTY", help="Subcell d(102) spacing, e.g. '2.0585+/-0.0005 A'.")
+@click.option("--superstructure", metavar="LABEL", help="1C, 2C, 4C, 5C, 6C, NC, ...")
+@click.option("--measured", metavar="ISO8601", help="When the analysis was made.")
+@click.option("--notes", metavar="TEXT")
+@pass_state
+def composition_add(state: State, code, method, wt, at_, d102, superstructure, measured, notes) -> None:
+    """Add an analysis of specimen CODE."""
+    out = state.vault().add_composition(code, method=method, wt=list(wt) or None, at=list(at_) or None,
+                                        d102=d102, superstructure=superstructure, measured=measured, notes=notes)
+    for w in out["warnings"]:
+        warn(w)
+    from .textviews import fmt_unc
+
+    click.echo(f"{code}: x = {fmt_unc(out['x'], out['x_uncertainty'])} in Fe(1-x)S"
+               + (f", {out['superstructure']}" if out["superstructure"] else ""))
+
+
+@main.group()
+def orientation() -> None:
+    """Record how a specimen's frame relates to its crystal axes."""
+
+
+@orientation.command("add")
+@click.argument("code")
+@click.option("--matrix", metavar="'r11,...,r33'", help="Rotation, row by row: specimen frame -> crystal frame.")
+@click.option("--axes", metavar="'a=X,c*=Z'", help="Specimen axes along a and c* (hexagonal: c is accepted).")
+@click.option("--euler", metavar="'phi1,Phi,phi2'",
+              help="Bunge Euler angles (Z-X-Z, degrees) rotating the specimen frame onto the crystal frame.")
+@click.option("--system", required=True, type=click.Choice(("hexagonal", "monoclinic", "orthorhombic", "cubic")))
+@click.option("--cell", metavar="'a=3.44 c=5.73'", help="Cell lengths in angstrom (and angles in degrees).")
+@click.option("--method", required=True, metavar="Laue|EBSD|diffraction|visual")
+@click.option("--uncertainty", metavar="ANGLE", help="e.g. '2 deg'.")
+@click.option("--measured", metavar="ISO8601")
+@pass_state
+def orientation_add(state: State, code, matrix, axes, euler, system, cell, method, uncertainty, measured) -> None:
+    """Add an orientation of specimen CODE (stored as a proper rotation).
+
+    The matrix maps specimen-frame vectors to the crystal Cartesian frame with x along a,
+    y in the a-b plane and z along c* (the usual orthogonalisation of the International Tables).
+    """
+    out = state.vault().add_orientation(code, system=system, method=method, matrix=matrix, axes=axes, euler=euler,
+                                        cell=cell, uncertainty=uncertainty, measured=measured)
+    for note in out.get("notes") or []:
+        warn(note)
+    click.echo(f"recorded orientation of {code} ({out['system']}, {out['method']})")
+
 
 @main.group()
 def treatment() -> None:

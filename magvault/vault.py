@@ -178,6 +178,69 @@ class Vault:
         with self.write() as s:
             registry.ensure_origin(s, name.strip(), kind, notes)
 
+    # -- compositions and orientations ------------------------------------------------------------
+
+    def add_composition(self, specimen: str, *, method: str, wt: list[str] | dict[str, Any] | None = None,
+                        at: list[str] | dict[str, Any] | None = None, d102: str | None = None,
+                        superstructure: str | None = None, measured: str | dt.datetime | None = None,
+                        notes: str | None = None) -> dict[str, Any]:
+        """Record one analysis and derive x in Fe(1-x)S with its uncertainty.
+
+        Give element amounts in wt% (``wt=['Fe=60.5+/-0.3', 'S=39.1+/-0.3']`` or a dict
+        ``{'Fe': (60.5, 0.3)}``), in at% (``at=...``), or the subcell d(102) spacing
+        (``d102='2.0585+/-0.0005 A'``).  Returns x, its uncertainty and warnings.
+        """
+        from .analysis import composition as comp
+        from .timeutil import parse_datetime
+        from .units import parse_quantity
+
+        given = [n for n, v in (("--wt", wt), ("--at", at), ("--d102", d102)) if v]
+        if len(given) != 1:
+            raise InvalidValue("give the analysis as --wt amounts, --at amounts or --d102, exactly one of them",
+                               field="wt")
+        if not method or not str(method).strip():
+            raise InvalidValue("--method: say how the composition was measured (e.g. microprobe)", field="method")
+        label = comp.validate_superstructure(superstructure) if superstructure else None
+        when = parse_datetime(measured, field="--measured") if measured else None
+        if d102:
+            d = parse_quantity(d102, dimension="m", field="--d102", positive=True, allow_unitless=True,
+                               default_unit="angstrom")
+            result, basis, amounts = comp.x_from_d102(d.value, d.uncertainty), "d102", {"d102_m": [d.value, d.uncertainty]}
+        else:
+            raw = wt or at
+            option = "--wt" if wt else "--at"
+            parsed = (comp.parse_element_amounts(raw, option) if not isinstance(raw, dict)
+                      else {k: (v if isinstance(v, (tuple, list)) else (v, None)) for k, v in raw.items()})
+            result = comp.composition_from_wt(parsed) if wt else comp.composition_from_at(parsed)
+            basis, amounts = ("wt" if wt else "at"), {k: list(v) for k, v in parsed.items()}
+        with self.write() as s:
+            registry.add_composition(s, specimen, method=str(method).strip(), basis=basis, amounts=amounts,
+                                     result=result, superstructure=label, measured_at=when, notes=notes)
+        return {"specimen": specimen, "x": result.x, "x_uncertainty": result.x_uncertainty,
+                "fe_s_ratio": result.fe_s_ratio, "fe_s_ratio_uncertainty": result.fe_s_ratio_uncertainty,
+                "superstructure": label, "warnings": list(result.warnings)}
+
+    def add_orientation(self, specimen: str, *, system: str, method: str, matrix: str | None = None,
+                        axes: str | None = None, euler: str | None = None, cell: str | None = None,
+                        uncertainty: str | None = None, measured: str | dt.datetime | None = None,
+                        notes: str | None = None) -> dict[str, Any]:
+        """Record how the specimen frame relates to the crystal axes, as a proper rotation.
+
+        The matrix maps specimen-frame vectors to the crystal Cartesian frame (x along a,
+        y in the a-b plane, z along c*).  Give exactly one of ``matrix`` (nine numbers, row
+        by row), ``axes`` (``'a=X,c*=Z'``) or ``euler`` (Bunge Z-X-Z angles in degrees,
+        rotating the specimen frame onto the crystal frame).
+        """
+        from .analysis.orientation import orientation_from_options
+        from .timeutil import parse_datetime
+
+        o = orientation_from_options(system=system, method=method, matrix=matrix, axes=axes, euler=euler,
+                                     cell=cell, uncertainty=uncertainty)
+        when = parse_datetime(measured, field="--measured") if measured else None
+        with self.write() as s:
+            registry.add_orientation(s, specimen, o, when, notes)
+        return {"specimen": specimen, **o.as_dict()}
+
     # -- treatments, instruments -----------------------------------------------------------
 
     def add_treatment(self, specimen: str, *, kind: str, at: str | dt.datetime,
@@ -282,6 +345,83 @@ class Vault:
         """The exact stored bytes for a SHA-256, with their first file name and media type."""
         with self.read() as s:
             return listing.raw_file(s, sha256)
+
+    # -- images -----------------------------------------------------------------------------
+
+    def attach_image(self, path: str | os.PathLike | None = None, *, data: bytes | None = None,
+                     name: str | None = None, specimen: str | None = None, run: int | None = None,
+                     pixel_size: str | None = None, caption: str | None = None) -> int:
+        """Attach a micrograph (PNG, JPEG, TIFF) to a specimen or run; the bytes are kept as they are.
+
+        ``pixel_size`` is a length per pixel with its unit, e.g. ``'0.25 um'``.
+        """
+        from .services import images
+        from .units import parse_quantity
+
+        blob = data if data is not None else _read_file(path)
+        name = name or (Path(path).name if path else "image")
+        size = (parse_quantity(pixel_size, dimension="m", field="pixel size", positive=True).value
+                if pixel_size else None)
+        with self.write() as s:
+            return images.attach(s, blob, name, specimen=specimen, run=_run_id(run) if run else None,
+                                 pixel_size_m=size, caption=caption).id
+
+    def images(self, *, specimen: str | None = None, run: int | None = None) -> list[dict[str, Any]]:
+        from .services import images
+
+        with self.read() as s:
+            spec_id = registry.get_specimen(s, specimen).id if specimen else None
+            return [images.describe(s, i) for i in images.list_for(s, specimen_id=spec_id,
+                                                                    run_id=_run_id(run) if run else None)]
+
+    def image(self, image_id: int) -> tuple[dict[str, Any], bytes]:
+        """The image's record and its original bytes, unaltered."""
+        from .services import images
+
+        with self.read() as s:
+            img = images.get(s, image_id)
+            doc = images.describe(s, img)
+            return doc, listing.raw_file(s, doc["sha256"])[0]
+
+    def thumbnail(self, image_id: int, max_px: int = 480) -> bytes:
+        """A PNG derived from the original for browsers (never stored in its place)."""
+        from .services import images
+
+        return images.thumbnail_png(self.image(image_id)[1], max_px)
+
+    # -- derived values -----------------------------------------------------------------------
+
+    def transitions(self, *, specimen: str | None = None, kind: str | None = None, run: int | None = None,
+                    method: str | None = None, primary_only: bool = False, branch: str | None = None,
+                    all_versions: bool = False) -> pd.DataFrame:
+        """Derived transitions (current runs, newest derivations unless ``all_versions``)."""
+        from .services import derive
+
+        with self.read() as s:
+            if specimen:
+                registry.get_specimen(s, specimen)
+            return derive.transitions_frame(s, specimen=specimen, kind=kind, run=_run_id(run) if run else None,
+                                            method=method, primary_only=primary_only, branch=branch,
+                                            all_versions=all_versions)
+
+    def results(self, *, specimen: str | None = None, run: int | None = None, quantity: str | None = None,
+                all_versions: bool = False) -> pd.DataFrame:
+        """Every other derived number (Ms, Hc, theta...) in SI with its uncertainty."""
+        from .services import derive
+
+        with self.read() as s:
+            if specimen:
+                registry.get_specimen(s, specimen)
+            return derive.results_frame(s, specimen=specimen, run=_run_id(run) if run else None,
+                                        quantity=quantity, all_versions=all_versions)
+
+    def derivations(self, run_id: int, *, all_versions: bool = True) -> list[dict[str, Any]]:
+        """How each derived value of a run was made: method, version, parameters, inputs."""
+        from .services import derive
+
+        with self.read() as s:
+            run_service.get_run(s, _run_id(run_id))
+            return derive.derivations_of(s, _run_id(run_id), all_versions=all_versions)
 
     # -- catalogue and log ------------------------------------------------------------------
 

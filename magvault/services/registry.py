@@ -204,3 +204,41 @@ def count_rows(session: Session) -> dict[str, int]:
             for name, model in (("specimens", Specimen), ("runs", Run), ("compositions", Composition),
                                 ("orientations", Orientation), ("treatments", Treatment))}
 
+
+
+# --- compositions and orientations ------------------------------------------------------
+
+def add_composition(session: Session, specimen_code: str, *, method: str, basis: str,
+                    amounts: dict[str, Any], result, superstructure: str | None,
+                    measured_at: dt.datetime | None, notes: str | None = None) -> Composition:
+    """Store one analysis; ``result`` is a :class:`magvault.analysis.composition.CompositionResult`."""
+    specimen = get_specimen(session, specimen_code)
+    comp = Composition(specimen_id=specimen.id, method=method, basis=basis, amounts=amounts, x=result.x,
+                       x_uncertainty=result.x_uncertainty, fe_s_ratio=result.fe_s_ratio,
+                       fe_s_ratio_uncertainty=result.fe_s_ratio_uncertainty, superstructure=superstructure,
+                       warnings=list(result.warnings), notes=notes)
+    if measured_at is not None:
+        comp.measured_at = measured_at
+    session.add(comp)
+    session.flush()
+    events.record(session, "create", "composition", comp.id, specimen_code=specimen.code,
+                  after={"method": method, "basis": basis, "amounts": amounts, "x": result.x,
+                         "x_uncertainty": result.x_uncertainty, "superstructure": superstructure},
+                  message="; ".join(result.warnings) or None)
+    return comp
+
+
+def add_orientation(session: Session, specimen_code: str, orientation, measured_at: dt.datetime | None,
+                    notes: str | None = None) -> Orientation:
+    """Store a rotation (``magvault.analysis.orientation.Orientation``) for a specimen."""
+    specimen = get_specimen(session, specimen_code)
+    doc = orientation.as_dict()
+    row = Orientation(specimen_id=specimen.id, matrix=doc["matrix"], system=doc["system"], cell=doc["cell"],
+                      method=doc["method"], uncertainty_deg=doc["uncertainty_deg"],
+                      notes="; ".join(list(doc.get("notes") or []) + ([notes] if notes else [])) or None)
+    if measured_at is not None:
+        row.measured_at = measured_at
+    session.add(row)
+    session.flush()
+    events.record(session, "create", "orientation", row.id, specimen_code=specimen.code, after=doc)
+    return row
