@@ -16,6 +16,7 @@ import contextlib
 import datetime as dt
 import mimetypes
 import os
+import re
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Iterator
@@ -203,7 +204,9 @@ class Vault:
         label = comp.validate_superstructure(superstructure) if superstructure else None
         when = parse_datetime(measured, field="--measured") if measured else None
         if d102:
-            d = parse_quantity(d102, dimension="m", field="--d102", positive=True, allow_unitless=True,
+            # Crystallographers write angstrom as "A", which pint reads as ampere.
+            text = re.sub(r"(?<![A-Za-z])(A|Å)\s*$", "angstrom", str(d102).strip())
+            d = parse_quantity(text, dimension="m", field="--d102", positive=True, allow_unitless=True,
                                default_unit="angstrom")
             result, basis, amounts = comp.x_from_d102(d.value, d.uncertainty), "d102", {"d102_m": [d.value, d.uncertainty]}
         else:
