@@ -53,6 +53,9 @@ class VaultGroup(click.Group):
             raise
         except KeyboardInterrupt:
             raise click.Abort() from None
+        except BrokenPipeError:  # output piped into `head` and the like: stop quietly
+            sys.stdout = open(os.devnull, "w")
+            raise click.exceptions.Exit(0) from None
         except Exception as exc:  # a bug, not bad input: still no traceback unless asked
             if os.environ.get("MAGVAULT_DEBUG"):
                 raise
@@ -346,6 +349,219 @@ def ingest(state: State, file, specimen, kind, run_id, profile, shape, mapping, 
     for w in report.warnings:
         warn(w)
     click.echo(report.run_id)
+
+
+# --- derived values ---------------------------------------------------------------------------------
+
+@main.command()
+@click.option("--run", "run_id", metavar="ID", help="Derive one run.")
+@click.option("--all", "all_runs", is_flag=True, help="Derive every current run.")
+@json_option
+@pass_state
+def derive(state: State, run_id, all_runs, as_json) -> None:
+    """Extract transitions and results from runs, recording how each was derived."""
+    if bool(run_id) == bool(all_runs):
+        raise click.UsageError("give --run ID or --all (one of them)")
+    summary = state.vault().derive(run=run_id, all=all_runs) if run_id else state.vault().derive(all=True)
+    if as_json:
+        emit_json(summary)
+        return
+    click.echo(f"derived {summary['runs']} runs: {summary['derivations_created']} new derivations, "
+               f"{summary['derivations_reused']} unchanged; {summary['transitions']} transitions, "
+               f"{summary['results']} results")
+    for line in summary["failed"]:
+        warn(f"failed: {line}")
+
+
+@main.command()
+@click.option("--specimen", metavar="CODE")
+@click.option("--kind", metavar="KIND", help="Transition kind id (see `magvault kinds`).")
+@click.option("--run", "run_id", metavar="ID")
+@click.option("--method", metavar="NAME", help="Only rows of this method (default: every method).")
+@click.option("--primary", is_flag=True, help="Only the primary (combined) rows.")
+@click.option("--branch", type=click.Choice(("heating", "cooling")))
+@click.option("--all-versions", is_flag=True, help="Include rows of older derivation versions.")
+@json_option
+@pass_state
+def transitions(state: State, specimen, kind, run_id, method, primary, branch, all_versions, as_json) -> None:
+    """List derived transition temperatures with uncertainties and methods."""
+    frame = state.vault().transitions(specimen=specimen, kind=kind, run=run_id, method=method, primary_only=primary,
+                                      branch=branch, all_versions=all_versions)
+    if as_json:
+        emit_json(frame)
+    else:
+        echo_table(clean(frame), ["specimen", "run", "kind", "temperature_K", "uncertainty_K", "method", "branch",
+                                  "component", "primary"])
+
+
+@main.command()
+@click.option("--specimen", metavar="CODE")
+@click.option("--run", "run_id", metavar="ID")
+@click.option("--quantity", metavar="NAME", help="e.g. Ms, Hc, Hcr, Mr_Ms, theta_K.")
+@click.option("--all-versions", is_flag=True, help="Include rows of older derivation versions.")
+@json_option
+@pass_state
+def results(state: State, specimen, run_id, quantity, all_versions, as_json) -> None:
+    """List every other derived number (Ms, Mr, Hc, Hcr, ratios, theta...) in SI."""
+    if specimen and run_id:
+        raise click.UsageError("give --run or --specimen, not both")
+    frame = state.vault().results(specimen=specimen, run=run_id, quantity=quantity, all_versions=all_versions)
+    if as_json:
+        emit_json(frame)
+    else:
+        echo_table(clean(frame), ["specimen", "run", "quantity", "value", "uncertainty", "unit", "method",
+                                  "block_temperature_K"])
+
+
+# --- collection queries ------------------------------------------------------------------------------
+
+def _records(frame) -> list[dict[str, Any]]:
+    from .queries import to_records
+
+    return to_records(frame)
+
+
+@main.command()
+@click.option("--kind", required=True, metavar="KIND", help="Transition kind id, e.g. low-t.")
+@click.option("--reference", metavar="KELVIN", help="A fixed reference temperature.")
+@click.option("--against", type=click.Choice(("collection", "trend", "earliest", "treatment")),
+              help="collection: median of the other specimens; trend: fit against x without the specimen; "
+                   "earliest: the specimen's first run; treatment: its runs before its latest treatment.")
+@click.option("--against-run", metavar="ID", help="That run's specimen: its later runs against this run.")
+@click.option("--sigma", default="3", show_default=True, metavar="N", help="Flag when |shift| >= N combined sigma.")
+@click.option("--by", type=click.Choice(("superstructure", "origin", "parent", "field", "direction")),
+              help="Form collection and trend references within groups.")
+@click.option("--bins", metavar="T1,T2,...", help="Field bin edges in tesla for --by field (default: decades).")
+@click.option("--branch", type=click.Choice(("heating", "cooling")), default="heating", show_default=True)
+@click.option("--method", metavar="NAME", help="Use this method's rows instead of the primary ones.")
+@click.option("--save", "save_as", metavar="NAME", help="Also save these parameters as a named query.")
+@json_option
+@pass_state
+def shifts(state: State, kind, reference, against, against_run, sigma, by, bins, branch, method, save_as,
+           as_json) -> None:
+    """Which specimens show a transition shifted from a reference, beyond uncertainty."""
+    params = {"kind": kind, "reference": reference, "against": against, "against_run": against_run,
+              "sigma": sigma, "by": by, "branch": branch, "method": method,
+              "bins": _float_list(bins, "--bins") if bins else None}
+    vault = state.vault()
+    frame = vault.shifts(**params)
+    if save_as:
+        vault.save_query(save_as, "shifts", {k: v for k, v in params.items() if v is not None})
+    if as_json:
+        emit_json(_records(frame))
+        return
+    rows = sorted(_records(frame), key=lambda r: (not r.get("flagged"), r.get("group") or "", r["specimen"]))
+    echo_table(rows, ["specimen"] + (["group"] if by else []) + ["temperature_K", "uncertainty_K", "reference_K",
+                                                                  "shift_K", "shift_uncertainty_K", "sigma",
+                                                                  "flagged", "note"])
+
+
+def _float_list(text: str, option: str) -> list[float]:
+    try:
+        return [float(v) for v in text.split(",") if v.strip()]
+    except ValueError:
+        from .errors import InvalidValue
+
+        raise InvalidValue(f"{option}: expected numbers separated by commas, got {text!r}") from None
+
+
+@main.command()
+@click.option("--kinds", metavar="A,B", help="Two transition kinds on the same specimens.")
+@click.option("--kind", metavar="KIND", help="One kind, compared across --run-kinds or --methods.")
+@click.option("--run-kinds", metavar="A,B", help="Two run kinds, e.g. thermomagnetic,susceptibility.")
+@click.option("--methods", metavar="A,B", help="Two methods, e.g. dmdt-extremum,two-tangent.")
+@click.option("--branch", type=click.Choice(("heating", "cooling")), default="heating", show_default=True)
+@click.option("--sigma", default="3", show_default=True, metavar="N")
+@click.option("--save", "save_as", metavar="NAME", help="Also save these parameters as a named query.")
+@json_option
+@pass_state
+def coupled(state: State, kinds, kind, run_kinds, methods, branch, sigma, save_as, as_json) -> None:
+    """Do two transitions coincide on the same specimens? Differences with uncertainties."""
+    params = {"kinds": kinds, "kind": kind, "run_kinds": run_kinds, "methods": methods, "branch": branch,
+              "sigma": sigma}
+    vault = state.vault()
+    frame = vault.coupled(**params)
+    if save_as:
+        vault.save_query(save_as, "coupled", {k: v for k, v in params.items() if v is not None})
+    if as_json:
+        emit_json(_records(frame))
+    else:
+        echo_table(_records(frame), ["specimen", "a", "b", "a_K", "b_K", "difference_K", "difference_uncertainty_K",
+                                     "sigma", "coincide", "note"])
+
+
+@main.command()
+@click.option("--kind", required=True, metavar="KIND")
+@click.option("--against", type=click.Choice(("x", "field", "angle")), default="x", show_default=True,
+              help="Composition x in Fe(1-x)S, applied field, or angle between field and c.")
+@click.option("--branch", type=click.Choice(("heating", "cooling")), default="heating", show_default=True)
+@click.option("--sigma", default="3", show_default=True, metavar="N", help="Outlier threshold.")
+@json_option
+@pass_state
+def correlate(state: State, kind, against, branch, sigma, as_json) -> None:
+    """Weighted straight line of a transition temperature against a property, with outliers."""
+    res = state.vault().correlate(kind, against=against, branch=branch, sigma=sigma)
+    doc = {"x": res.x, "n": res.n, "slope": res.slope, "slope_uncertainty": res.slope_uncertainty,
+           "intercept": res.intercept, "intercept_uncertainty": res.intercept_uncertainty,
+           "covariance": None if res.covariance is None else res.covariance.tolist(), "scatter": res.scatter,
+           "note": res.note, "points": _records(res.points)}
+    if as_json:
+        emit_json(doc)
+        return
+    from .textviews import fmt_unc
+
+    if res.slope is None:
+        click.echo(f"no fit: {res.note}")
+    else:
+        click.echo(f"{kind} against {res.x}: slope {fmt_unc(res.slope, res.slope_uncertainty)} K per unit, "
+                   f"intercept {fmt_unc(res.intercept, res.intercept_uncertainty)} K, {res.n} points")
+    outliers = [p for p in doc["points"] if p.get("outlier")]
+    for p in outliers:
+        click.echo(f"  outlier: {p.get('specimen')} {p.get('temperature_K'):.4g} K")
+
+
+@main.group()
+def query() -> None:
+    """Saved queries: list, show and re-run them by name."""
+
+
+@query.command("list")
+@json_option
+@pass_state
+def query_list(state: State, as_json) -> None:
+    """List saved queries."""
+    rows = state.vault().saved_queries()
+    if as_json:
+        emit_json(rows)
+    else:
+        echo_table(rows, ["name", "query", "parameters", "created_at"])
+
+
+@query.command("show")
+@click.argument("name")
+@json_option
+@pass_state
+def query_show(state: State, name, as_json) -> None:
+    """Show a saved query's parameters."""
+    doc = state.vault().saved_query(name)
+    if as_json:
+        emit_json(doc)
+    else:
+        click.echo(json.dumps(doc, indent=1))
+
+
+@query.command("run")
+@click.argument("name")
+@json_option
+@pass_state
+def query_run(state: State, name, as_json) -> None:
+    """Re-run a saved query by name."""
+    out = state.vault().run_saved_query(name)
+    rows = _records(out) if hasattr(out, "columns") else _records(out.points)
+    if as_json:
+        emit_json(rows)
+    else:
+        echo_table(rows, list(rows[0].keys())[:9] if rows else [])
 
 
 # --- registry context -----------------------------------------------------------------------------

@@ -55,6 +55,16 @@ class Code(fields.String):
         return text
 
 
+class Name(fields.String):
+    """A free name (instrument, origin, profile): 1-64 printable characters, spaces allowed."""
+
+    def _deserialize(self, value, attr, data, **kwargs):
+        text = super()._deserialize(value, attr, data, **kwargs).strip()
+        if not text or len(text) > 64 or any(not c.isprintable() for c in text):
+            raise ValidationError(f"{text!r} is not a usable name: 1-64 printable characters")
+        return text
+
+
 class Quantity(fields.Field):
     """Text such as '12.5 mg' or '12.50+/-0.02 mg' -> :class:`Measured` in SI."""
 
@@ -182,14 +192,14 @@ class ReasonIn(_Strict):
 
 
 class InstrumentIn(_Strict):
-    name = Code(required=True)
+    name = Name(required=True)
     kind = fields.String(required=True, validate=validate.OneOf(INSTRUMENT_KINDS))
     place = fields.String(load_default=None, allow_none=True, validate=validate.Length(max=200))
     notes = fields.String(load_default=None, allow_none=True)
 
 
 class CalibrationIn(_Strict):
-    name = Code(required=True)
+    name = Name(required=True)
     at = When(required=True)
     note = fields.String(load_default=None, allow_none=True)
 
@@ -199,6 +209,10 @@ class TreatmentIn(_Strict):
     kind = fields.String(required=True, validate=validate.Length(1, 32))
     at = When(required=True)
     notes = fields.String(load_default=None, allow_none=True)
+
+
+class SavedQueryIn(_Strict):
+    name = Name(required=True)
 
 
 RUN_STATUS_CHOICES = RUN_STATUSES

@@ -418,6 +418,30 @@ class Vault:
             return derive.results_frame(s, specimen=specimen, run=_run_id(run) if run else None,
                                         quantity=quantity, all_versions=all_versions)
 
+    def derive(self, run: int | None = None, *, all: bool = False) -> dict[str, Any]:  # noqa: A002
+        """Run the analyses on one run (``run=ID``) or on every current run (``all=True``).
+
+        Each outcome is stored as a derivation with its method, version, parameters and
+        inputs; deriving unchanged inputs again reuses the existing record.  Returns a
+        summary (runs, derivations created and reused, rows, skipped and failed runs).
+        """
+        from .services import deriving
+
+        if (run is None) == (not all):
+            raise InvalidValue("derive: give a run id or all=True (one of them)", field="run")
+        if run is not None:
+            with self.read() as s:
+                target = run_service.get_run(s, _run_id(run))
+                if target.raw_file_id is None:
+                    raise InvalidValue(f"run {target.id} has no data yet ({target.status})", field="run")
+                if target.status in ("retracted", "superseded"):
+                    raise InvalidValue(f"run {target.id} is {target.status}; it is not derived", field="run")
+            ids = [target.id]
+        else:
+            frame = self.runs(status="recorded")
+            ids = [int(i) for i in frame["id"]]
+        return deriving.derive_runs(self, ids).as_dict()
+
     def derivations(self, run_id: int, *, all_versions: bool = True) -> list[dict[str, Any]]:
         """How each derived value of a run was made: method, version, parameters, inputs."""
         from .services import derive
@@ -425,6 +449,91 @@ class Vault:
         with self.read() as s:
             run_service.get_run(s, _run_id(run_id))
             return derive.derivations_of(s, _run_id(run_id), all_versions=all_versions)
+
+    # -- collection queries -----------------------------------------------------------------
+
+    def shifts(self, kind: str, *, reference: float | str | None = None, against: str | None = None,
+               against_run: int | None = None, sigma: float = 3.0, by: str | None = None,
+               branch: str = "heating", method: str | None = None,
+               bins: list[float] | None = None) -> pd.DataFrame:
+        """Which specimens show ``kind`` shifted from a reference, and how significantly.
+
+        Give exactly one reference: ``reference`` (a temperature in kelvin), ``against``
+        (``'collection'``, ``'trend'``, ``'earliest'`` or ``'treatment'``) or ``against_run``
+        (a run id).  ``by`` groups the collection and trend references (superstructure,
+        origin, parent, field, direction).  Columns: specimen, temperature_K, uncertainty_K,
+        reference_K, shift_K, shift_uncertainty_K, sigma, flagged, note (and group).
+        """
+        from .services import collection
+
+        mode, ref_K, ref_run = _shift_mode(reference, against, against_run)
+        sigma = _positive(sigma, "sigma")
+        if branch not in collection.BRANCHES:
+            raise InvalidValue(f"--branch: {branch!r} is not heating or cooling", field="branch")
+        with self.read() as s:
+            return collection.shifts(s, kind=kind, mode=mode, reference_K=ref_K, reference_run=ref_run, sigma=sigma,
+                                     by=by, branch=branch, method=method, field_edges_T=bins)
+
+    def coupled(self, *, kinds: str | list[str] | None = None, kind: str | None = None,
+                run_kinds: str | list[str] | None = None, methods: str | list[str] | None = None,
+                branch: str = "heating", sigma: float = 3.0) -> pd.DataFrame:
+        """Two transitions on the same specimens: difference B - A, its uncertainty, and whether they coincide."""
+        from .services import collection
+
+        with self.read() as s:
+            return collection.coupled(s, kinds=_pair(kinds, "kinds"), kind=kind, run_kinds=_pair(run_kinds, "run-kinds"),
+                                      methods=_pair(methods, "methods"), branch=branch,
+                                      sigma=_positive(sigma, "sigma"))
+
+    def correlate(self, kind: str, *, against: str = "x", branch: str = "heating", sigma: float = 3.0):
+        """Weighted line of the kind's temperature against composition x, field or angle to c.
+
+        Returns a :class:`magvault.queries.CorrelationResult` (slope, intercept, their
+        uncertainties and covariance, and the points with outlier flags).
+        """
+        from .queries import correlate as fit
+        from .services import collection
+
+        with self.read() as s:
+            points, column = collection.correlation_points(s, kind=kind, against=against, branch=branch)
+        return fit(points, x=column, sigma=_positive(sigma, "sigma"))
+
+    def composition_map(self, *, kinds: list[str] | None = None, branch: str | None = "heating") -> pd.DataFrame:
+        """Every primary transition against x in Fe(1-x)S, with both uncertainties."""
+        from .services import collection
+
+        with self.read() as s:
+            return collection.composition_points(s, kinds=kinds, branch=branch)
+
+    def save_query(self, name: str, query: str, parameters: dict[str, Any], *, replace: bool = False) -> None:
+        """Store a query's parameters under a name (the CLI, the dashboard and notebooks share them)."""
+        from .services import saved
+
+        checked = schemas.load(schemas.SavedQueryIn(), {"name": name})
+        with self.write() as s:
+            saved.save(s, checked["name"], query, parameters, replace=replace)
+
+    def saved_queries(self) -> list[dict[str, Any]]:
+        from .services import saved
+
+        with self.read() as s:
+            return saved.all_saved(s)
+
+    def saved_query(self, name: str) -> dict[str, Any]:
+        from .services import saved
+
+        with self.read() as s:
+            return saved.get(s, name)
+
+    def run_saved_query(self, name: str):
+        """Re-run a saved query by name with its stored parameters."""
+        doc = self.saved_query(name)
+        method = {"shifts": self.shifts, "coupled": self.coupled, "correlate": self.correlate,
+                  "composition_map": self.composition_map}.get(doc["query"])
+        if method is None:
+            raise InvalidValue(f"saved query {name!r} is a {doc['query']} view; open it in the dashboard",
+                               field="name")
+        return method(**doc["parameters"])
 
     # -- catalogue and log ------------------------------------------------------------------
 
@@ -461,6 +570,46 @@ def _run_id(value: Any, field: str = "run") -> int:
     if number <= 0:
         raise InvalidValue(f"{field}: run ids are positive, got {value!r}", field=field)
     return number
+
+
+def _shift_mode(reference, against, against_run) -> tuple[str, float | None, int | None]:
+    given = [n for n, v in (("--reference", reference), ("--against", against), ("--against-run", against_run))
+             if v is not None]
+    if len(given) != 1:
+        raise InvalidValue("shifts: give exactly one of --reference KELVIN, --against MODE, --against-run ID"
+                           + (f" (got {', '.join(given)})" if given else ""), field="reference")
+    if reference is not None:
+        from .units import parse_quantity
+
+        text = str(reference)
+        value = parse_quantity(text, dimension="K", field="--reference", positive=True, allow_unitless=True).value
+        return "reference", value, None
+    if against is not None:
+        modes = ("collection", "trend", "earliest", "treatment")
+        if against not in modes:
+            raise InvalidValue(f"--against: {against!r} is not one of {', '.join(modes)}", field="against")
+        return against, None, None
+    return "run", None, _run_id(against_run, "against-run")
+
+
+def _positive(value: Any, field: str) -> float:
+    try:
+        number = float(value)
+    except (TypeError, ValueError):
+        raise InvalidValue(f"--{field}: expected a number, got {value!r}", field=field) from None
+    if not (number > 0 and number < float("inf")):
+        raise InvalidValue(f"--{field}: expected a positive number, got {value!r}", field=field)
+    return number
+
+
+def _pair(value: str | list[str] | None, field: str) -> tuple[str, str] | None:
+    if value is None:
+        return None
+    items = [v.strip() for v in (value.split(",") if isinstance(value, str) else value) if v and v.strip()]
+    if len(items) != 2 or items[0] == items[1]:
+        raise InvalidValue(f"--{field}: expected two different names separated by a comma, got {value!r}",
+                           field=field)
+    return items[0], items[1]
 
 
 def _read_file(path: str | os.PathLike) -> bytes:

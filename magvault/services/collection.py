@@ -1,0 +1,219 @@
+"""Collection queries: fetch rows with SQL (indexed filters), hand them to the pure statistics.
+
+Filtering happens in the database (kind, primary, current derivation, active
+run, branch); medians, leave-one-out references and fits happen in numpy in
+:mod:`magvault.queries`.
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+import numpy as np
+import pandas as pd
+from sqlalchemy import or_, select
+from sqlalchemy.orm import Session
+
+from ..errors import InvalidValue, NotFound
+from ..store.models import Origin, Run, Specimen, Transition, TransitionKind, Treatment
+from .derive import INACTIVE_STATUSES
+from .listing import composition_map, orientation_of
+
+BRANCHES = ("heating", "cooling")
+BY_CHOICES = ("superstructure", "origin", "parent", "field", "direction")
+
+
+def check_kind(session: Session, kind: str) -> None:
+    if session.get(TransitionKind, kind) is None:
+        known = ", ".join(session.scalars(select(TransitionKind.id).order_by(TransitionKind.id)))
+        raise NotFound(f"--kind: no transition kind {kind!r}; known kinds: {known}", field="kind")
+
+
+def transition_rows(session: Session, kind: str, *, branch: str | None = "heating", method: str | None = None,
+                    run_kind: str | None = None, specimen_ids: list[int] | None = None) -> pd.DataFrame:
+    """One row per transition of ``kind`` (primary rows, or ``method``'s rows) over active runs.
+
+    Columns: specimen, specimen_id, run, started, temperature_K, uncertainty_K, field_T, direction, run_kind.
+    Rows without a branch count as the rising-temperature branch (the usual single sweep).
+    """
+    q = (select(Specimen.code, Transition.specimen_id, Transition.run_id, Run.started, Transition.temperature_K,
+                Transition.uncertainty_K, Run.conditions, Run.direction, Run.kind)
+         .join(Run, Run.id == Transition.run_id).join(Specimen, Specimen.id == Transition.specimen_id)
+         .where(Transition.kind == kind, Transition.current.is_(True), Transition.component == 1,
+                Run.status.not_in(INACTIVE_STATUSES)))
+    q = q.where(Transition.method == method) if method else q.where(Transition.is_primary.is_(True))
+    if branch == "heating":
+        q = q.where(or_(Transition.branch == "heating", Transition.branch.is_(None)))
+    elif branch:
+        q = q.where(Transition.branch == branch)
+    if run_kind:
+        q = q.where(Run.kind == run_kind)
+    if specimen_ids is not None:
+        q = q.where(Transition.specimen_id.in_(specimen_ids))
+    rows = session.execute(q.order_by(Specimen.code, Run.started, Transition.run_id)).all()
+    frame = pd.DataFrame.from_records(
+        [(r[0], r[1], r[2], r[3], r[4], r[5], (r[6] or {}).get("field_T"), r[7], r[8]) for r in rows],
+        columns=["specimen", "specimen_id", "run", "started", "temperature_K", "uncertainty_K", "field_T",
+                 "direction", "run_kind"])
+    frame["started"] = pd.to_datetime(frame["started"], utc=True)
+    for c in ("temperature_K", "uncertainty_K", "field_T"):
+        frame[c] = pd.to_numeric(frame[c], errors="coerce").astype(float)
+    return frame
+
+
+def specimen_table(session: Session, by: str | None) -> pd.DataFrame:
+    """specimen, x, x_uncertainty and, when grouping by a specimen property, group."""
+    rows = session.execute(select(Specimen.id, Specimen.code, Specimen.parent_id, Origin.name)
+                           .outerjoin(Origin, Origin.id == Specimen.origin_id)).all()
+    codes = {r[0]: r[1] for r in rows}
+    comps = composition_map(session)
+    records = []
+    for sid, code, parent_id, origin in rows:
+        comp = comps.get(sid) or {}
+        group = {"superstructure": comp.get("superstructure"), "origin": origin,
+                 "parent": codes.get(parent_id, code) if parent_id else code}.get(by or "")
+        records.append({"specimen": code, "x": comp.get("x"), "x_uncertainty": comp.get("x_uncertainty"),
+                        "superstructure": comp.get("superstructure"), "group": group})
+    frame = pd.DataFrame.from_records(records, columns=["specimen", "x", "x_uncertainty", "superstructure", "group"])
+    for c in ("x", "x_uncertainty"):
+        frame[c] = pd.to_numeric(frame[c], errors="coerce").astype(float)
+    if by not in ("superstructure", "origin", "parent"):
+        frame = frame.drop(columns="group")
+    return frame
+
+
+def treatment_table(session: Session) -> pd.DataFrame:
+    rows = session.execute(select(Specimen.code, Treatment.at).join(Specimen, Specimen.id == Treatment.specimen_id)).all()
+    frame = pd.DataFrame.from_records(rows, columns=["specimen", "at"])
+    frame["at"] = pd.to_datetime(frame["at"], utc=True)
+    return frame
+
+
+def direction_groups(session: Session, rows: pd.DataFrame) -> pd.Series:
+    """Nearest of a, b* and c* to each run's applied-field direction, in the crystal frame."""
+    from ..analysis.orientation import Cell, nearest_axis
+    from ..schemas import direction_vector
+
+    cache: dict[int, Any] = {}
+    labels = []
+    for sid, direction in zip(rows["specimen_id"], rows["direction"]):
+        if sid not in cache:
+            cache[sid] = orientation_of(session, session.get(Specimen, int(sid)))
+        o = cache[sid]
+        if o is None:
+            labels.append("no orientation")
+            continue
+        if not direction:
+            labels.append("no field direction")
+            continue
+        cell = o.get("cell")
+        cell_obj = (Cell(cell["a_m"], cell["b_m"], cell["c_m"], cell["alpha_deg"], cell["beta_deg"], cell["gamma_deg"])
+                    if cell else Cell(1.0, 1.0, 1.0, 90.0, 90.0, 120.0 if o["system"] == "hexagonal" else 90.0))
+        axis, _angle = nearest_axis(np.asarray(o["matrix"], dtype=float).reshape(3, 3), direction_vector(direction),
+                                    cell_obj)
+        labels.append(f"along {axis}")
+    return pd.Series(labels, index=rows.index, dtype=object)
+
+
+def shifts(session: Session, *, kind: str, mode: str, reference_K: float | None, reference_run: int | None,
+           sigma: float, by: str | None, branch: str, method: str | None,
+           field_edges_T: list[float] | None) -> pd.DataFrame:
+    from ..queries import shifts as shift_stats
+
+    check_kind(session, kind)
+    if by is not None and by not in BY_CHOICES:
+        raise InvalidValue(f"--by: {by!r} is not one of {', '.join(BY_CHOICES)}", field="by")
+    rows = transition_rows(session, kind, branch=branch, method=method)
+    if by == "direction":
+        rows["group"] = direction_groups(session, rows)
+    if mode == "run" and reference_run is not None and int(reference_run) not in set(rows["run"]):
+        run = session.get(Run, int(reference_run))
+        if run is None:
+            raise NotFound(f"--against-run: run {reference_run} not found", field="against_run")
+        raise InvalidValue(f"--against-run: run {reference_run} has no primary {kind} transition on the "
+                           f"{branch} branch (derive it first, or choose another run)", field="against_run")
+    specimens = specimen_table(session, by)
+    treatments = treatment_table(session) if mode == "treatment" else None
+    return shift_stats(rows.drop(columns=["specimen_id", "direction"]), specimens, mode=mode,
+                       reference_K=reference_K, reference_run=reference_run, treatments=treatments, sigma=sigma,
+                       by=by, field_edges_T=field_edges_T)
+
+
+def coupled(session: Session, *, kinds: tuple[str, str] | None, kind: str | None,
+            run_kinds: tuple[str, str] | None, methods: tuple[str, str] | None, branch: str,
+            sigma: float) -> pd.DataFrame:
+    from ..queries import coupled as coupled_stats
+
+    if kinds:
+        for k in kinds:
+            check_kind(session, k)
+        a = transition_rows(session, kinds[0], branch=branch)
+        b = transition_rows(session, kinds[1], branch=branch)
+        labels = kinds
+    elif kind and run_kinds:
+        check_kind(session, kind)
+        a = transition_rows(session, kind, branch=branch, run_kind=run_kinds[0])
+        b = transition_rows(session, kind, branch=branch, run_kind=run_kinds[1])
+        labels = run_kinds
+    elif kind and methods:
+        check_kind(session, kind)
+        a = transition_rows(session, kind, branch=branch, method=methods[0])
+        b = transition_rows(session, kind, branch=branch, method=methods[1])
+        labels = methods
+    else:
+        raise InvalidValue("coupled: give --kinds A,B, or --kind K with --run-kinds A,B or --methods A,B",
+                           field="kinds")
+    out = coupled_stats(a, b, sigma=sigma)
+    out.insert(1, "a", labels[0])
+    out.insert(2, "b", labels[1])
+    return out
+
+
+def correlation_points(session: Session, *, kind: str, against: str, branch: str) -> tuple[pd.DataFrame, str]:
+    """Points for a weighted line of the kind's temperature against x, field or angle to c."""
+    from ..queries import specimen_estimates
+    from ..analysis.orientation import Cell, angle_to_c_deg
+    from ..schemas import direction_vector
+
+    check_kind(session, kind)
+    rows = transition_rows(session, kind, branch=branch)
+    if against == "x":
+        est = specimen_estimates(rows[["specimen", "run", "started", "temperature_K", "uncertainty_K"]])
+        comp = specimen_table(session, None)[["specimen", "x", "x_uncertainty"]]
+        return est.merge(comp, on="specimen", how="left"), "x"
+    if against == "field":
+        return rows.drop(columns=["specimen_id"]), "field_T"
+    if against == "angle":
+        angles = []
+        cache: dict[int, Any] = {}
+        for sid, direction in zip(rows["specimen_id"], rows["direction"]):
+            if sid not in cache:
+                cache[sid] = orientation_of(session, session.get(Specimen, int(sid)))
+            o = cache[sid]
+            if o is None or not direction:
+                angles.append(np.nan)
+                continue
+            cell = o.get("cell")
+            cell_obj = (Cell(cell["a_m"], cell["b_m"], cell["c_m"], cell["alpha_deg"], cell["beta_deg"],
+                             cell["gamma_deg"]) if cell else Cell(1.0, 1.0, 1.0, 90.0, 90.0, 90.0))
+            angles.append(angle_to_c_deg(np.asarray(o["matrix"], dtype=float).reshape(3, 3),
+                                         direction_vector(direction), cell_obj))
+        rows = rows.assign(angle_to_c_deg=angles)
+        return rows.drop(columns=["specimen_id"]), "angle_to_c_deg"
+    raise InvalidValue(f"--against: {against!r} is not one of x, field, angle", field="against")
+
+
+def composition_points(session: Session, *, kinds: list[str] | None, branch: str | None) -> pd.DataFrame:
+    from ..queries import composition_map as shape_map
+
+    q_kinds = kinds or list(session.scalars(select(TransitionKind.id)))
+    frames = []
+    for k in q_kinds:
+        rows = transition_rows(session, k, branch=branch)
+        if not rows.empty:
+            frames.append(rows.assign(kind=k))
+    columns = ["specimen", "run", "kind", "temperature_K", "uncertainty_K", "started", "run_kind"]
+    transitions = (pd.concat(frames, ignore_index=True)[columns] if frames
+                   else pd.DataFrame(columns=columns).astype({"temperature_K": float, "uncertainty_K": float}))
+    comp = specimen_table(session, None)
+    return shape_map(transitions, comp)
