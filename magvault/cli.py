@@ -351,6 +351,49 @@ def ingest(state: State, file, specimen, kind, run_id, profile, shape, mapping, 
     click.echo(report.run_id)
 
 
+@main.group()
+def profile() -> None:
+    """Saved column mappings for exports that the guess reads wrongly."""
+
+
+@profile.command("save")
+@click.argument("name")
+@click.option("--from-run", metavar="ID", help="Take the mapping that imported this run.")
+@click.option("--map", "mapping", metavar="'COL=target,...'", help="The mapping, e.g. 'Temp=temperature_K'.")
+@click.option("--kind", type=click.Choice(RUN_KINDS), help="Run kind the profile is for (with --map).")
+@click.option("--shape", type=click.Choice(("delimited", "sectioned", "commented", "blocks", "spreadsheet")))
+@pass_state
+def profile_save(state: State, name, from_run, mapping, kind, shape) -> None:
+    """Save profile NAME; use it with `magvault ingest --profile NAME`."""
+    doc = state.vault().save_profile(name, from_run=from_run, mapping=mapping, kind=kind, shape=shape)
+    click.echo(f"saved profile {name}: " + ", ".join(f"{k} -> {v}" for k, v in doc["mapping"].items()))
+
+
+@profile.command("list")
+@json_option
+@pass_state
+def profile_list(state: State, as_json) -> None:
+    """List saved profiles."""
+    rows = state.vault().profiles()
+    if as_json:
+        emit_json(rows)
+    else:
+        echo_table(rows, ["name", "run_kind", "shape", "mapping"])
+
+
+@profile.command("show")
+@click.argument("name")
+@json_option
+@pass_state
+def profile_show(state: State, name, as_json) -> None:
+    """Show one profile."""
+    doc = state.vault().profile(name)
+    if as_json:
+        emit_json(doc)
+    else:
+        click.echo(json.dumps(doc, indent=1, ensure_ascii=False))
+
+
 # --- derived values ---------------------------------------------------------------------------------
 
 @main.command()

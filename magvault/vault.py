@@ -32,7 +32,7 @@ from .services import events as event_log
 from .services import listing, registry, runs as run_service
 from .store import schema as db_schema
 from .store.engine import database_url, make_engine, sqlite_path, writer
-from .store.models import Event, Run, TransitionKind
+from .store.models import RUN_KINDS, Event, Run, TransitionKind
 from .timeutil import iso, now
 
 __all__ = ["Vault", "open_vault", "IngestReport"]
@@ -316,6 +316,41 @@ class Vault:
 
         return importing.parse(self, path, kind=kind, data=data, source_name=source_name, profile=profile,
                                shape=shape, mapping=mapping, encoding=encoding, sheet=sheet, overrides=overrides)
+
+    def save_profile(self, name: str, *, from_run: int | None = None, mapping: str | dict[str, str] | None = None,
+                     kind: str | None = None, shape: str | None = None,
+                     units: dict[str, str] | None = None) -> dict[str, Any]:
+        """Save a column mapping under a name: taken from an imported run, or given as ``mapping``."""
+        from .ingest import Profile, parse_map
+        from .services import importing
+
+        checked = schemas.load(schemas.SavedQueryIn(), {"name": name})["name"]
+        if (from_run is None) == (mapping is None):
+            raise InvalidValue("profile save: give --from-run ID or --map 'COL=target,...' (one of them)",
+                               field="map")
+        with self.write() as s:
+            if from_run is not None:
+                profile = importing.profile_from_run(s, _run_id(from_run), checked)
+            else:
+                pairs = parse_map(mapping) if isinstance(mapping, str) else dict(mapping)
+                if kind is not None and kind not in RUN_KINDS:
+                    raise InvalidValue(f"--kind: {kind!r} is not a run kind", field="kind")
+                profile = Profile(name=checked, mapping=pairs, units=dict(units or {}), shape=shape, run_kind=kind)
+            importing.save_profile(s, checked, profile)
+        return profile.to_dict()
+
+    def profiles(self) -> list[dict[str, Any]]:
+        from .store.models import Profile as ProfileRow
+
+        with self.read() as s:
+            return [{"name": r.name, **r.definition, "created_at": iso(r.created_at)}
+                    for r in s.scalars(select(ProfileRow).order_by(ProfileRow.name))]
+
+    def profile(self, name: str) -> dict[str, Any]:
+        for doc in self.profiles():
+            if doc["name"] == name:
+                return doc
+        raise NotFound(f"profile {name!r} not found; `magvault profile list` shows the saved ones", field="profile")
 
     def retract_run(self, run_id: int, *, reason: str) -> None:
         """Mark a run retracted (nothing is deleted); the reason goes to the event log."""

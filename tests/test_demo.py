@@ -1,0 +1,119 @@
+"""The demo collection, built and derived as `magvault demo` builds it, against its own manifest.
+
+Every expected number comes from the generator's manifest.json (never copied by
+hand).  Building takes about half a minute, so it happens once for this module.
+"""
+
+from __future__ import annotations
+
+import json
+from collections import Counter
+
+import numpy as np
+import pytest
+
+import magvault
+from magvault import demo as demo_builder
+
+pytestmark = pytest.mark.slow
+
+
+@pytest.fixture(scope="module")
+def built(tmp_path_factory):
+    out = tmp_path_factory.mktemp("demo")
+    summary = demo_builder.build(out)
+    manifest = json.loads(summary.manifest.read_text())
+    plan = json.loads((summary.folder / "plan.json").read_text())
+    vault = magvault.open(summary.database)
+    yield summary, manifest, plan, vault
+    vault.close()
+
+
+def test_counts_and_lineage_match_the_manifest(built):
+    summary, manifest, _, vault = built
+    counts = manifest["counts"]
+    assert summary.specimens == counts["specimens"]
+    assert summary.runs_by_kind == counts["runs_by_kind"]
+    specimens = vault.specimens().set_index("code")
+    for code, parent in manifest["lineage"].items():
+        got = specimens.loc[code, "parent"]
+        assert (None if got is None or got != got else got) == parent
+
+
+def test_compositions_recover_the_planted_x(built):
+    _, manifest, _, vault = built
+    specimens = vault.specimens().set_index("code")
+    for code, comp in manifest["compositions"].items():
+        row = specimens.loc[code]
+        assert abs(row["x"] - comp["x"]) <= 3 * row["x_uncertainty"] + 1e-4, code
+        assert row["superstructure"] == comp["superstructure"]
+
+
+def test_every_loop_has_ms_mr_hc(built):
+    _, _, _, vault = built
+    loops = vault.runs(kind="hysteresis")
+    results = vault.results()
+    for run_id in loops["id"]:
+        have = set(results.loc[results["run"] == run_id, "quantity"])
+        assert {"Ms", "Mr", "Hc"} <= have, run_id
+
+
+def test_primary_low_t_transitions_where_planted_and_nowhere_else(built):
+    _, manifest, _, vault = built
+    rows = vault.transitions(kind="low-t", primary_only=True, branch="heating")
+    runs = vault.runs().set_index("id")
+    planted = {f: p for f, p in manifest["planted"].items() if p["kind"] == "thermomagnetic"}
+    found = {}
+    for r in rows.itertuples():
+        found.setdefault(runs.loc[r.run, "source_name"], []).append(r)
+    z = []
+    for file, p in planted.items():
+        steps = p.get("lowt_heating_K")
+        got = found.get(file.split("/")[-1], [])
+        if not steps:
+            assert not got, f"{file}: a low-T transition where none is planted"
+            continue
+        assert got, f"{file}: the planted low-T step was not found"
+        first = [g for g in got if g.component == 1][0]
+        z.append((first.temperature_K - steps[0]) / first.uncertainty_K)
+    z = np.abs(np.array(z))
+    # Honest uncertainties on the demo's own curves: most within 2u, none absurdly far.
+    assert np.mean(z <= 2) >= 0.85 and z.max() < 5
+
+
+def test_primary_ordering_for_every_pyrrhotite_furnace_run(built):
+    _, manifest, _, vault = built
+    rows = vault.transitions(kind="ordering", primary_only=True)
+    runs = vault.runs().set_index("id")
+    by_file = {(runs.loc[r.run, "source_name"], r.branch): r for r in rows.itertuples()}
+    checked = 0
+    for file, p in manifest["planted"].items():
+        if p["kind"] != "thermomagnetic" or "curie_heating_K" not in p:
+            continue
+        r = by_file.get((file.split("/")[-1], "heating"))
+        assert r is not None, f"{file}: no primary ordering temperature"
+        assert abs(r.temperature_K - p["curie_heating_K"]) <= 2 * r.uncertainty_K, file
+        checked += 1
+    assert checked >= 10
+
+
+@pytest.mark.parametrize("mode", ["earliest", "treatment", "collection", "trend"])
+def test_low_t_shifts_flag_what_the_manifest_plants(built, mode):
+    _, manifest, _, vault = built
+    frame = vault.shifts("low-t", against=mode)
+    flagged = set(frame.loc[frame["flagged"].fillna(False).astype(bool), "specimen"])
+    expected = manifest["expected_flags"][mode]
+    assert set(expected["must"]) <= flagged, (mode, flagged)
+    assert not (set(expected["must_not"]) & flagged), (mode, flagged)
+
+
+def test_demo_rebuild_replaces_only_its_own_files(tmp_path):
+    keep = tmp_path / "notes.txt"
+    keep.write_text("mine")
+    first = demo_builder.build(tmp_path, derive=False)
+    marker = first.folder / "exports" / "stale.csv"
+    marker.write_text("left over")
+    second = demo_builder.build(tmp_path, derive=False)
+    assert keep.read_text() == "mine" and not marker.exists()
+    assert second.runs_by_kind == first.runs_by_kind
+    assert Counter(second.runs_by_kind).total() > 200
