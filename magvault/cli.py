@@ -607,6 +607,45 @@ def query_run(state: State, name, as_json) -> None:
         echo_table(rows, list(rows[0].keys())[:9] if rows else [])
 
 
+# --- publication -------------------------------------------------------------------------------------
+
+@main.command()
+@click.option("--out", "out_dir", required=True, type=click.Path(file_okay=False), help="New folder for the dataset.")
+@click.option("--specimen", "specimens", multiple=True, metavar="CODE", help="Only these specimens (repeat).")
+@click.option("--kind", "kinds", multiple=True, type=click.Choice(RUN_KINDS), help="Only these run kinds (repeat).")
+@click.option("--name", metavar="NAME", help="Name of the dataset (versions count up per name).")
+@click.option("--title", metavar="TEXT")
+@click.option("--author", "authors", multiple=True, metavar="NAME", help="Author for CITATION.cff (repeat).")
+@json_option
+@pass_state
+def bundle(state: State, out_dir, specimens, kinds, name, title, authors, as_json) -> None:
+    """Freeze a selection into a citable, checksummed dataset folder."""
+    doc = state.vault().bundle(out_dir, name=name, specimens=list(specimens) or None, kinds=list(kinds) or None,
+                               title=title, authors=list(authors) or None)
+    if as_json:
+        emit_json(doc)
+    else:
+        click.echo(f"bundle {doc['name']} v{doc['version']}: {doc['files']} files, {len(doc['runs'])} runs, "
+                   f"{len(doc['specimens'])} specimens in {doc['folder']}")
+
+
+@main.command()
+@click.option("--bundle", "bundle_dir", type=click.Path(file_okay=False), help="Check a bundle folder instead.")
+@json_option
+@pass_state
+def verify(state: State, bundle_dir, as_json) -> None:
+    """Check that stored raw files (or a bundle's files) still match their SHA-256."""
+    problems = state.vault().verify(bundle_dir)
+    if as_json:
+        emit_json({"ok": not problems, "problems": problems})
+    else:
+        for p in problems:
+            click.echo(p)
+        click.echo("all checksums match" if not problems else f"{len(problems)} problem(s)")
+    if problems:
+        raise click.exceptions.Exit(1)
+
+
 # --- registry context -----------------------------------------------------------------------------
 
 @main.group()

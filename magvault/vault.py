@@ -570,6 +570,32 @@ class Vault:
                                field="name")
         return method(**doc["parameters"])
 
+    # -- publication ----------------------------------------------------------------------------
+
+    def bundle(self, out: str | os.PathLike, *, name: str | None = None, specimens: list[str] | None = None,
+               kinds: list[str] | None = None, title: str | None = None,
+               authors: list[str] | None = None) -> dict[str, Any]:
+        """Freeze a selection (specimens, run kinds; default everything recorded) into a dataset folder.
+
+        The folder is a Frictionless Data Package: raw exports byte for byte, SI tables per run,
+        derived transitions and results with their derivations, specimens, CITATION.cff and
+        SHA256SUMS.  The bundle is recorded in the vault with a version number.
+        """
+        from .services import bundles
+
+        for k in kinds or []:
+            if k not in RUN_KINDS:
+                raise InvalidValue(f"--kind: {k!r} is not a run kind", field="kind")
+        label = schemas.load(schemas.SavedQueryIn(), {"name": name or Path(out).name or "bundle"})["name"]
+        return bundles.build(self, Path(out), name=label, specimens=specimens, kinds=kinds, title=title,
+                             authors=authors)
+
+    def verify(self, bundle: str | os.PathLike | None = None) -> list[str]:
+        """Check the raw store (every stored file still hashes to its address), or a bundle folder."""
+        from .services import bundles
+
+        return bundles.verify_folder(Path(bundle)) if bundle else bundles.verify_store(self)
+
     # -- catalogue and log ------------------------------------------------------------------
 
     def kinds(self) -> list[dict[str, Any]]:
