@@ -133,3 +133,14 @@ def test_same_seed_gives_the_same_numbers(built, tmp_path):
         assert list(a["sha256"]) == list(b["sha256"]) and list(a["started"]) == list(b["started"])
         for run_id in a["id"].iloc[::25]:
             pd.testing.assert_frame_equal(vault.series(int(run_id)), other.series(int(run_id)))
+
+
+def test_grouping_by_field_direction_in_the_crystal_frame(built):
+    """The demo's single crystals are oriented: each run's field maps to the nearest of a, b*, c*."""
+    _, _, _, vault = built
+    frame = vault.shifts("low-t", against="collection", by="direction")
+    labels = set(frame["group"])
+    assert labels & {"along a", "along b*", "along c*"}
+    assert labels <= {"along a", "along b*", "along c*", "no orientation", "no field direction"}
+    angles = vault.correlate("ordering", against="angle").points["angle_to_c_deg"].dropna()
+    assert len(angles) and ((angles >= 0) & (angles <= 90)).all()

@@ -67,6 +67,7 @@ from scipy.special import ndtr
 
 from ..catalogue import UNASSIGNED, assign_kind, seed_kinds
 from ..errors import InvalidValue
+from .options import settings_from_options
 from .results import Outcome, ResultValue, TransitionEstimate
 from .thermomagnetic import (ORDERING_KINDS, TransitionNotFound, UniformCurve, derivative_noise,
                              noise_sigma, savgol, savgol_window_points, split_branches,
@@ -173,12 +174,7 @@ class LowTemperatureSettings:
 
     @classmethod
     def from_options(cls, options: dict[str, Any]) -> "LowTemperatureSettings":
-        names = {f.name for f in dataclasses.fields(cls)}
-        unknown = sorted(set(options) - names)
-        if unknown:
-            raise InvalidValue(f"unknown option(s) {', '.join(unknown)}; expected some of "
-                               f"{', '.join(sorted(names))}", field=unknown[0])
-        settings = cls(**options)
+        settings = settings_from_options(cls, options)
         for name in ("savgol_window_K", "fit_half_window_K", "search_ceiling_K"):
             value = getattr(settings, name)
             if not (np.isfinite(value) and value > 0):

@@ -66,6 +66,7 @@ from scipy.signal import savgol_coeffs
 
 from ..catalogue import UNASSIGNED, assign_kind
 from ..errors import InvalidValue, MagvaultError
+from .options import settings_from_options
 from .results import Outcome, ResultValue, TransitionEstimate
 
 __all__ = [
@@ -179,12 +180,7 @@ class OrderingSettings:
 
     @classmethod
     def from_options(cls, options: dict[str, Any]) -> "OrderingSettings":
-        names = {f.name for f in dataclasses.fields(cls)}
-        unknown = sorted(set(options) - names)
-        if unknown:
-            raise InvalidValue(f"unknown option(s) {', '.join(unknown)}; expected some of "
-                               f"{', '.join(sorted(names))}", field=unknown[0])
-        settings = cls(**options)
+        settings = settings_from_options(cls, options)
         settings.validate()
         return settings
 

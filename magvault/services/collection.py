@@ -89,29 +89,34 @@ def treatment_table(session: Session) -> pd.DataFrame:
     return frame
 
 
-def direction_groups(session: Session, rows: pd.DataFrame) -> pd.Series:
-    """Nearest of a, b* and c* to each run's applied-field direction, in the crystal frame."""
-    from ..analysis.orientation import Cell, nearest_axis
+def _field_in_crystal(session: Session, rows: pd.DataFrame):
+    """Per row: (rotation, field direction in the specimen frame, cell), or a reason why there is none."""
+    from ..analysis.orientation import Cell
     from ..schemas import direction_vector
 
     cache: dict[int, Any] = {}
-    labels = []
     for sid, direction in zip(rows["specimen_id"], rows["direction"]):
         if sid not in cache:
             cache[sid] = orientation_of(session, session.get(Specimen, int(sid)))
         o = cache[sid]
         if o is None:
-            labels.append("no orientation")
-            continue
-        if not direction:
-            labels.append("no field direction")
-            continue
-        cell = o.get("cell")
-        cell_obj = (Cell(cell["a_m"], cell["b_m"], cell["c_m"], cell["alpha_deg"], cell["beta_deg"], cell["gamma_deg"])
-                    if cell else Cell(1.0, 1.0, 1.0, 90.0, 90.0, 120.0 if o["system"] == "hexagonal" else 90.0))
-        axis, _angle = nearest_axis(np.asarray(o["matrix"], dtype=float).reshape(3, 3), direction_vector(direction),
-                                    cell_obj)
-        labels.append(f"along {axis}")
+            yield "no orientation"
+        elif not isinstance(direction, str) or not direction:  # None arrives as NaN from pandas
+            yield "no field direction"
+        else:
+            c = o.get("cell")
+            # Without a recorded cell only the axes' directions matter: a unit cell of the system.
+            cell = (Cell(c["a_m"], c["b_m"], c["c_m"], c["alpha_deg"], c["beta_deg"], c["gamma_deg"]) if c
+                    else Cell(1.0, 1.0, 1.0, 90.0, 90.0, 120.0 if o["system"] == "hexagonal" else 90.0))
+            yield np.asarray(o["matrix"], dtype=float).reshape(3, 3), direction_vector(direction), cell
+
+
+def direction_groups(session: Session, rows: pd.DataFrame) -> pd.Series:
+    """Nearest of a, b* and c* to each run's applied-field direction, in the crystal frame."""
+    from ..analysis.orientation import nearest_axis
+
+    labels = [item if isinstance(item, str) else f"along {nearest_axis(*item)[0]}"
+              for item in _field_in_crystal(session, rows)]
     return pd.Series(labels, index=rows.index, dtype=object)
 
 
@@ -171,9 +176,8 @@ def coupled(session: Session, *, kinds: tuple[str, str] | None, kind: str | None
 
 def correlation_points(session: Session, *, kind: str, against: str, branch: str) -> tuple[pd.DataFrame, str]:
     """Points for a weighted line of the kind's temperature against x, field or angle to c."""
+    from ..analysis.orientation import angle_to_c_deg
     from ..queries import specimen_estimates
-    from ..analysis.orientation import Cell, angle_to_c_deg
-    from ..schemas import direction_vector
 
     check_kind(session, kind)
     rows = transition_rows(session, kind, branch=branch)
@@ -184,20 +188,8 @@ def correlation_points(session: Session, *, kind: str, against: str, branch: str
     if against == "field":
         return rows.drop(columns=["specimen_id"]), "field_T"
     if against == "angle":
-        angles = []
-        cache: dict[int, Any] = {}
-        for sid, direction in zip(rows["specimen_id"], rows["direction"]):
-            if sid not in cache:
-                cache[sid] = orientation_of(session, session.get(Specimen, int(sid)))
-            o = cache[sid]
-            if o is None or not direction:
-                angles.append(np.nan)
-                continue
-            cell = o.get("cell")
-            cell_obj = (Cell(cell["a_m"], cell["b_m"], cell["c_m"], cell["alpha_deg"], cell["beta_deg"],
-                             cell["gamma_deg"]) if cell else Cell(1.0, 1.0, 1.0, 90.0, 90.0, 90.0))
-            angles.append(angle_to_c_deg(np.asarray(o["matrix"], dtype=float).reshape(3, 3),
-                                         direction_vector(direction), cell_obj))
+        angles = [np.nan if isinstance(item, str) else angle_to_c_deg(*item)
+                  for item in _field_in_crystal(session, rows)]
         rows = rows.assign(angle_to_c_deg=angles)
         return rows.drop(columns=["specimen_id"]), "angle_to_c_deg"
     raise InvalidValue(f"--against: {against!r} is not one of x, field, angle", field="against")
