@@ -18,8 +18,8 @@ import click
 
 from . import __version__
 from .errors import MagvaultError
-from .services.events import jsonable
-from .store.models import RUN_KINDS, SPECIMEN_KINDS
+from .jsonutil import jsonable
+from .vocabulary import INSTRUMENT_KINDS, RUN_KINDS, RUN_STATUSES, SHAPES, SPECIMEN_KINDS
 
 DEFAULT_DB = "magvault.db"
 
@@ -241,7 +241,7 @@ def specimen_show(state: State, code: str, as_json: bool) -> None:
 @main.command("runs")
 @click.option("--specimen", metavar="CODE")
 @click.option("--kind", type=click.Choice(RUN_KINDS))
-@click.option("--status", type=click.Choice(("planned", "running", "recorded", "superseded", "retracted")))
+@click.option("--status", type=click.Choice(RUN_STATUSES))
 @json_option
 @pass_state
 def runs_cmd(state: State, specimen, kind, status, as_json) -> None:
@@ -317,7 +317,7 @@ def run_show(state: State, run_id, as_json) -> None:
 @click.option("--kind", type=click.Choice(RUN_KINDS), help="Run kind (new run).")
 @click.option("--run", "run_id", metavar="ID", help="Attach the file to a run logged earlier as planned or running.")
 @click.option("--profile", metavar="NAME", help="A saved column mapping.")
-@click.option("--shape", type=click.Choice(("delimited", "sectioned", "commented", "blocks", "spreadsheet")),
+@click.option("--shape", type=click.Choice(SHAPES),
               help="Force the shape instead of sniffing it.")
 @click.option("--map", "mapping", metavar="'COL=target,...'", help="Correct the guessed mapping, e.g. 'Temp=temperature_K'.")
 @click.option("--direction", metavar="X|Y|Z|x,y,z")
@@ -361,7 +361,7 @@ def profile() -> None:
 @click.option("--from-run", metavar="ID", help="Take the mapping that imported this run.")
 @click.option("--map", "mapping", metavar="'COL=target,...'", help="The mapping, e.g. 'Temp=temperature_K'.")
 @click.option("--kind", type=click.Choice(RUN_KINDS), help="Run kind the profile is for (with --map).")
-@click.option("--shape", type=click.Choice(("delimited", "sectioned", "commented", "blocks", "spreadsheet")))
+@click.option("--shape", type=click.Choice(SHAPES))
 @pass_state
 def profile_save(state: State, name, from_run, mapping, kind, shape) -> None:
     """Save profile NAME; use it with `magvault ingest --profile NAME`."""
@@ -731,8 +731,7 @@ def instrument() -> None:
 
 @instrument.command("add")
 @click.argument("name")
-@click.option("--kind", required=True, type=click.Choice(("magnetometer", "ultrasound", "diffractometer",
-                                                         "calorimeter", "other")))
+@click.option("--kind", required=True, type=click.Choice(INSTRUMENT_KINDS))
 @click.option("--place", metavar="TEXT")
 @click.option("--notes", metavar="TEXT")
 @pass_state

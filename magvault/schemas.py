@@ -14,12 +14,11 @@ import numpy as np
 from marshmallow import EXCLUDE, Schema, ValidationError, fields, validate, validates_schema
 
 from .errors import InvalidValue
-from .store.models import RUN_KINDS, RUN_STATUSES, SPECIMEN_KINDS
+from .vocabulary import INSTRUMENT_KINDS, RUN_KINDS, RUN_STATUSES, SPECIMEN_KINDS
 from .timeutil import parse_datetime
 from .units import Measured, parse_quantity
 
 CODE_PATTERN = re.compile(r"^[A-Za-z0-9][A-Za-z0-9._/-]{0,63}$")
-INSTRUMENT_KINDS = ("magnetometer", "ultrasound", "diffractometer", "calorimeter", "other")
 
 
 def load(schema: Schema, data: dict[str, Any]) -> dict[str, Any]:

@@ -2,14 +2,13 @@
 
 from __future__ import annotations
 
-import datetime as dt
 import getpass
-import math
 import os
 from typing import Any
 
 from sqlalchemy.orm import Session
 
+from ..jsonutil import jsonable
 from ..store.models import Event
 
 
@@ -22,22 +21,6 @@ def current_user() -> str:
         return getpass.getuser()[:64]
     except Exception:  # no login name in some containers
         return "unknown"
-
-
-def jsonable(value: Any) -> Any:
-    """Plain JSON values for the log (datetimes as ISO 8601, NaN as None)."""
-    if isinstance(value, dict):
-        return {str(k): jsonable(v) for k, v in value.items()}
-    if isinstance(value, (list, tuple)):
-        return [jsonable(v) for v in value]
-    if isinstance(value, dt.datetime):
-        from ..timeutil import iso
-        return iso(value)
-    if isinstance(value, float) and not math.isfinite(value):
-        return None
-    if hasattr(value, "item") and callable(value.item):  # numpy scalars
-        return jsonable(value.item())
-    return value
 
 
 def record(session: Session, action: str, entity: str, entity_id: Any = None, *,

@@ -19,12 +19,7 @@ from sqlalchemy.orm import Mapped, deferred, mapped_column, relationship
 
 from .base import Base, intpk, jsondict, text64, text200, utc, utcnow
 
-RUN_KINDS = ("thermomagnetic", "hysteresis", "backfield", "susceptibility",
-             "resonance", "diffraction", "calorimetry")
-RUN_STATUSES = ("planned", "running", "recorded", "superseded", "retracted")
-BRANCHES = ("heating", "cooling")
-ROLES = ("viewer", "recorder", "curator")
-SPECIMEN_KINDS = ("single crystal", "aggregate", "powder", "polished section")
+from ..vocabulary import BRANCHES, ROLES, RUN_KINDS, RUN_STATUSES, SPECIMEN_KINDS  # noqa: F401  (re-exported)
 
 
 def _in(column: str, values: tuple[str, ...]) -> str:
