@@ -3,7 +3,9 @@
 Views call :class:`magvault.Vault` only; they never touch SQL.  One blueprint
 per area: the collection, specimens, runs, the bench (logging and imports),
 images, the audit log, the JSON API and the static assets (plotly.js is served
-from the installed plotly package: the dashboard never touches the network).
+from the installed plotly package: the dashboard never touches the network),
+and the pages that look across the collection: shifts, overlay, composition
+map, coupled transitions and saved queries.
 
 >>> from magvault.webui import create_app
 >>> app = create_app("magvault.db")
@@ -72,8 +74,10 @@ def create_app(db: str, test_config: dict[str, Any] | None = None) -> Flask:
     formatting.init_app(app)
 
     from .views import api, assets, bench, collection, events, images, runs, specimens
+    from .views import coupled, overlay, phase_map, saved, shifts
 
-    for module in (collection, specimens, runs, bench, images, events, api, assets):
+    for module in (collection, specimens, runs, bench, images, events, api, assets,
+                   shifts, overlay, phase_map, coupled, saved):
         app.register_blueprint(module.bp)
     return app
 

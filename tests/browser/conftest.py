@@ -96,3 +96,54 @@ def desk(browser):
     page.problems = PageProblems(page)
     yield page
     context.close()
+
+
+def _serve(path: str):
+    """Start the dashboard for the vault at ``path`` on a free port; returns (base URL, app, stop)."""
+    from werkzeug.serving import make_server
+
+    from magvault.paths import part
+
+    app = part("webui").create_app(path)
+    server = make_server("127.0.0.1", 0, app, threaded=True)
+    thread = threading.Thread(target=server.serve_forever, daemon=True)
+    thread.start()
+
+    def stop():
+        server.shutdown()
+        thread.join(timeout=10)
+        server.server_close()
+        app.extensions["magvault"].close()
+
+    return f"http://127.0.0.1:{server.server_port}", app, stop
+
+
+@pytest.fixture(scope="session")
+def demo_build(tmp_path_factory):
+    """The invented demo (``magvault demo``), built once per test session: (database path, its manifest)."""
+    import json
+
+    from magvault.demo import build
+
+    summary = build(tmp_path_factory.mktemp("demo"))
+    return str(summary.database), json.loads(summary.manifest.read_text())
+
+
+@pytest.fixture(scope="module")
+def demo_live(demo_build):
+    """The dashboard over the demo: (base URL, manifest, app)."""
+    path, manifest = demo_build
+    base, app, stop = _serve(path)
+    yield base, manifest, app
+    stop()
+
+
+@pytest.fixture(scope="module")
+def many_live(tmp_path_factory):
+    """The dashboard over 200 demo-sized low-temperature runs: (base URL, run ids, app)."""
+    from webui_data import many_curves_sqlite
+
+    path, ids = many_curves_sqlite(tmp_path_factory.mktemp("many"))
+    base, app, stop = _serve(path)
+    yield base, ids, app
+    stop()

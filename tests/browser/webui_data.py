@@ -220,3 +220,156 @@ def filled_sqlite(folder) -> tuple[str, "Collection"]:
     with magvault.open(path, create=True) as vault:
         made = build_collection(vault)
     return path, made
+
+
+# --- a small collection for the pages that look across it (tests/test_webui_explore*.py) ------------
+
+EXPLORE_ORIGIN = "Harrowmere Ridge"
+EXPLORE_OTHER_ORIGIN = "Kestle Deep"
+#: Invented composition trend of the low-temperature transition: T = TREND_T0_K + TREND_SLOPE_K * (x - 0.11).
+TREND_T0_K = 32.0
+TREND_SLOPE_K = 60.0
+PLANTED_U_K = 0.15
+
+
+def lowt_csv(t_k: float, *, n: int = 391, t_lo: float = 5.0, t_hi: float = 200.0, m0_emu: float = 2.0,
+             step: float = 0.03, width_k: float = 1.0, seed: int = 0) -> bytes:
+    """A delimited low-temperature export (kelvin, emu) with a smooth step down at ``t_k`` (invented shape)."""
+    rng = np.random.default_rng(seed)
+    t = np.linspace(t_lo, t_hi, n)
+    m = m0_emu * (1 - step / (1 + np.exp(-(t - t_k) / width_k))) * (1 - 1e-4 * t) + rng.normal(0, 2e-4, n)
+    lines = ["Temperature (K),Moment (emu)"] + [f"{a:.3f},{b:.7e}" for a, b in zip(t, m)]
+    return ("\n".join(lines) + "\n").encode("utf-8")
+
+
+def plant_transitions(vault, planted: list[tuple[int, str, float, float, str | None]], *,
+                      second_method_offset_K: float | None = None) -> None:
+    """Stored transitions with invented values: (run id, kind, temperature K, uncertainty K, branch).
+
+    Test setup only (the pages display derivations and never make them).  With
+    ``second_method_offset_K``, each run also gets a non-primary row from a
+    second invented method, offset by that much, for the coupled page.
+    """
+    from magvault.analysis.results import Outcome, TransitionEstimate
+    from magvault.services.derive import store_outcome
+    from magvault.services.runs import get_run, latest_series
+
+    with vault.write() as session:
+        for run_id, kind, t_k, u_k, branch in planted:
+            rows = [TransitionEstimate(kind, t_k, u_k, "planted-for-tests", branch=branch, primary=True)]
+            if second_method_offset_K is not None:
+                rows.append(TransitionEstimate(kind, t_k + second_method_offset_K, 2 * u_k, "planted-second",
+                                               branch=branch, primary=False))
+            outcome = Outcome(method="planted-for-tests", version="1.0", parameters={"kind": kind},
+                              transitions=tuple(rows), warnings=("invented numbers for the dashboard's tests",))
+            run = get_run(session, run_id)
+            store_outcome(session, outcome, [(run, latest_series(session, run_id))])
+
+
+@dataclass
+class ExploreCollection:
+    """What :func:`build_explore_collection` made, and which specimen carries which planted cause."""
+
+    pieces: list[str]
+    annealed: str          # shifted by an anneal between its runs
+    off_trend: str         # above the composition trend in every run
+    foreign: str           # another origin, far below the others
+    no_composition: str    # a specimen without an analysis (cannot be placed on x)
+    runs: dict[str, list[int]]
+    planted_K: dict[int, float]
+    ordering_runs: list[int]
+
+
+def build_explore_collection(vault) -> ExploreCollection:
+    """An invented crystal cut into six pieces, one foreign specimen and one without composition.
+
+    Every piece has two low-temperature runs a week apart with the low-T
+    transition planted on the invented trend (plus a deterministic jitter of a
+    few hundredths of a kelvin); one piece is annealed between its runs and
+    shifts by +2 K, one sits 5 K above the trend, the foreign one 5 K below.
+    Three pieces also have a furnace run with an ordering transition.
+    """
+    vault.add_origin(EXPLORE_ORIGIN, kind="locality")
+    vault.add_origin(EXPLORE_OTHER_ORIGIN, kind="drill core")
+    vault.add_specimen("HR1", mass="400.0+/-0.1 mg", kind="single crystal", origin=EXPLORE_ORIGIN)
+    xs = {"HR1-a": 0.095, "HR1-b": 0.100, "HR1-c": 0.105, "HR1-d": 0.110, "HR1-e": 0.115, "HR1-f": 0.120}
+    # wt% Fe for x in Fe(1-x)S: w_Fe = (1-x) M_Fe / ((1-x) M_Fe + M_S), IUPAC 2021 atomic weights.
+    for code, x in xs.items():
+        vault.add_specimen(code, parent="HR1", mass="30.00+/-0.02 mg", kind="single crystal")
+        _composition(vault, code, x, "4C")
+    vault.add_specimen("KD1", mass="25.00+/-0.02 mg", kind="aggregate", origin=EXPLORE_OTHER_ORIGIN)
+    _composition(vault, "KD1", 0.108, "4C")
+    vault.add_specimen("NX1", mass="20.00+/-0.02 mg", kind="powder", origin=EXPLORE_ORIGIN)
+
+    jitter = [0.04, -0.03, 0.02, -0.05, 0.01, 0.03, -0.02, 0.05]
+    runs: dict[str, list[int]] = {}
+    planted: list[tuple[int, str, float, float, str | None]] = []
+    planted_K: dict[int, float] = {}
+    codes = [*xs, "KD1", "NX1"]
+    for i, code in enumerate(codes):
+        x = xs.get(code, 0.108 if code == "KD1" else 0.11)
+        base = TREND_T0_K + TREND_SLOPE_K * (x - 0.11) + {"HR1-d": 5.0, "KD1": -5.0}.get(code, 0.0)
+        runs[code] = []
+        for j, day in enumerate(("2026-03-02", "2026-03-09")):
+            t_k = base + jitter[(i + j) % len(jitter)] + (2.0 if code == "HR1-c" and j == 1 else 0.0)
+            r = vault.ingest(data=lowt_csv(t_k, seed=10 * i + j), source_name=f"{code.lower()}_lowt_{j + 1}.csv",
+                             specimen=code, kind="thermomagnetic", overrides=[f"started={day}T09:00Z", "field=0.1 T"])
+            runs[code].append(r.run_id)
+            planted.append((r.run_id, "low-t", t_k, PLANTED_U_K, "heating"))
+            planted_K[r.run_id] = t_k
+        if code == "HR1-c":
+            vault.add_treatment(code, kind="anneal", at="2026-03-05T10:00Z",
+                                conditions=["temperature=573 K", "duration=2 h", "atmosphere=argon"])
+    plant_transitions(vault, planted, second_method_offset_K=0.1)
+    ordering = []
+    for i, code in enumerate(("HR1-a", "HR1-b", "HR1-c")):
+        r = vault.ingest(data=thermomagnetic_csv(n=400, seed=20 + i), source_name=f"{code.lower()}_furnace.csv",
+                         specimen=code, kind="thermomagnetic", overrides=[f"started=2026-03-1{i}T09:00Z"])
+        ordering.append(r.run_id)
+    plant_transitions(vault, [(rid, "ordering", 596.0 + i, 1.5, "heating") for i, rid in enumerate(ordering)])
+    return ExploreCollection(pieces=list(xs), annealed="HR1-c", off_trend="HR1-d", foreign="KD1",
+                             no_composition="NX1", runs=runs, planted_K=planted_K, ordering_runs=ordering)
+
+
+def _composition(vault, code: str, x: float, superstructure: str) -> None:
+    m_fe, m_s = 55.845, 32.06  # IUPAC 2021 standard atomic weights (Prohaska et al., 2022)
+    fe = (1 - x) * m_fe
+    total = fe + m_s
+    vault.add_composition(code, method="microprobe",
+                          wt={"Fe": (round(100 * fe / total, 3), 0.3), "S": (round(100 * m_s / total, 3), 0.3)},
+                          superstructure=superstructure, measured="2026-02-20T12:00Z")
+
+
+def explore_sqlite(folder) -> tuple[str, ExploreCollection]:
+    """A SQLite vault in ``folder`` holding :func:`build_explore_collection`; returns (path, what was made)."""
+    import magvault
+
+    path = str(folder / "explore.db")
+    with magvault.open(path, create=True) as vault:
+        made = build_explore_collection(vault)
+    return path, made
+
+
+def many_curves_sqlite(folder, n_runs: int = 200, n_points: int = 801) -> tuple[str, list[int]]:
+    """A SQLite vault with ``n_runs`` low-temperature runs of ``n_points`` points each (for the overlay's size limit).
+
+    Curves of demo size (the demo's low-temperature runs have 391-801 points), spread over
+    ten invented specimens, each with a planted low-T transition.
+    """
+    import magvault
+
+    path = str(folder / "many.db")
+    ids, planted = [], []
+    with magvault.open(path, create=True) as vault:
+        for s in range(10):
+            vault.add_specimen(f"MC{s:02d}", mass="10.00+/-0.02 mg")
+            _composition(vault, f"MC{s:02d}", 0.09 + 0.003 * s, "4C")
+        for i in range(n_runs):
+            code = f"MC{i % 10:02d}"
+            t_k = 30.0 + 0.02 * i
+            r = vault.ingest(data=lowt_csv(t_k, n=n_points, seed=i), source_name=f"mc_{i:03d}.csv", specimen=code,
+                             kind="thermomagnetic", overrides=[f"started=2026-04-01T{i % 24:02d}:{i // 24:02d}Z"])
+            ids.append(r.run_id)
+            planted.append((r.run_id, "low-t", t_k, PLANTED_U_K, "heating"))
+        plant_transitions(vault, planted)
+    return path, ids
