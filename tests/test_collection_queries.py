@@ -13,6 +13,7 @@ import json
 import math
 
 import pytest
+from sqlalchemy import select
 from click.testing import CliRunner
 
 from magvault.cli import main
@@ -159,3 +160,29 @@ def test_cli_shifts_json_is_the_contract_and_never_nan(collection, db_url):
     assert saved.exit_code == 0
     rerun = json.loads(runner.invoke(main, ["--db", db_url, "query", "run", "first-runs", "--json"]).stdout)
     assert {r["specimen"] for r in rerun if r["flagged"]} == {"A2"}
+
+
+def test_the_column_wise_composition_summary_agrees_with_the_registry(vault):
+    """Shifts read compositions without ORM objects; the numbers must be the registry's own."""
+    from magvault.services.collection import composition_summary
+    from magvault.services.listing import composition_map
+    from magvault.store.models import Specimen
+
+    vault.add_specimen("P", mass="50 mg")
+    vault.add_specimen("P-a", parent="P", mass="5 mg")           # inherits P's combined analyses
+    vault.add_specimen("Q", mass="5 mg")                         # one analysis
+    vault.add_specimen("R", mass="5 mg")                         # none
+    vault.add_composition("P", method="microprobe", wt=wt_for_x(0.10), superstructure="4C")
+    vault.add_composition("P", method="microprobe", wt=wt_for_x(0.13), superstructure="5C")
+    vault.add_composition("Q", method="microprobe", wt=wt_for_x(0.09))
+    with vault.read() as s:
+        parents = dict(s.execute(select(Specimen.id, Specimen.parent_id)).all())
+        codes = dict(s.execute(select(Specimen.id, Specimen.code)).all())
+        fast = {codes[k]: v for k, v in composition_summary(s, parents).items()}
+        full = {codes[k]: v for k, v in composition_map(s).items()}
+    assert set(fast) == set(full) == {"P", "P-a", "Q"}
+    for code, (x, u, label) in fast.items():
+        assert x == pytest.approx(full[code]["x"], rel=1e-12)
+        assert u == pytest.approx(full[code]["x_uncertainty"], rel=1e-12)
+        assert label == full[code]["superstructure"]
+    assert fast["P-a"] == fast["P"] and fast["P"][2] == "5C"

@@ -174,3 +174,39 @@ def test_python_module_and_public_api():
     assert callable(magvault.open)
     assert "Vault" in magvault.__all__ and magvault.Vault.__name__ == "Vault"
     assert os.path.basename(magvault.__file__) == "__init__.py"
+
+
+def test_series_blobs_of_the_earlier_text_layout_still_read():
+    """Blobs written before text columns were coded (fixed-width unicode plus a mask) still unpack."""
+    import io
+
+    buf = io.BytesIO()
+    np.savez(buf, __columns__=np.asarray(["temperature_K", "branch"]), c0=np.array([300.0, 310.0, 320.0]),
+             c1=np.asarray(["heating", "", "cooling"]), __mask__c1=np.array([False, True, False]))
+    back = unpack_frame(buf.getvalue())
+    assert list(back.columns) == ["temperature_K", "branch"]
+    assert back["branch"].isna().tolist() == [False, True, False]
+    assert back["branch"].iloc[2] == "cooling"
+
+
+@pytest.mark.parametrize("branch", [[None, None], [], ["heating"] * 2])
+def test_coded_text_columns_round_trip_when_empty_or_all_missing(branch):
+    n = len(branch)
+    frame = pd.DataFrame({"temperature_K": np.arange(n, dtype=float), "branch": pd.Series(branch, dtype="str")})
+    back = unpack_frame(bytes(pack_frame(frame)))
+    assert len(back) == n
+    assert back["branch"].isna().tolist() == frame["branch"].isna().tolist()
+    assert back["branch"].fillna("-").tolist() == frame["branch"].fillna("-").tolist()
+
+
+def test_whole_column_time_text_matches_the_row_by_row_form():
+    import datetime as dt
+
+    from magvault.services.derive import iso_column, utc_column
+    from magvault.timeutil import iso
+
+    stored = ["2026-03-01 09:00:00.000000", "2026-03-01 09:00:00.250000", None,
+              dt.datetime(2025, 12, 31, 23, 59, 59, 5)]
+    expected = [iso(dt.datetime(2026, 3, 1, 9, 0)), iso(dt.datetime(2026, 3, 1, 9, 0, 0, 250000)), None,
+                iso(dt.datetime(2025, 12, 31, 23, 59, 59, 5))]
+    assert list(iso_column(utc_column(stored))) == expected

@@ -196,7 +196,9 @@ def read_export(data: bytes, *, source_name: str, run_kind: str, shape: str | No
         maps.append(ColumnMap(b.source, b.unit, name, float(b.factor), float(b.offset), True))
     if run_kind in BRANCHED_KINDS and BRANCH not in series and "temperature_K" in series:
         labels = label_branches(series["temperature_K"])
-        if (labels == "").all():
+        # label_branches labels every row or none (all ''), so the first row tells; comparing
+        # a million strings would cost more than labelling them.
+        if not labels.size or labels[0] == "":
             if run_kind == "thermomagnetic":
                 warnings.append("the temperature does not change; branch left empty")
                 series[BRANCH] = labels

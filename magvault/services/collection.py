@@ -7,6 +7,7 @@ run, branch); medians, leave-one-out references and fits happen in numpy in
 
 from __future__ import annotations
 
+from collections import Counter
 from typing import Any
 
 import numpy as np
@@ -15,9 +16,9 @@ from sqlalchemy import or_, select
 from sqlalchemy.orm import Session
 
 from ..errors import InvalidValue, NotFound
-from ..store.models import Origin, Run, Specimen, Transition, TransitionKind, Treatment
-from .derive import INACTIVE_STATUSES
-from .listing import composition_map, orientation_of
+from ..store.models import Composition, Origin, Run, Specimen, Transition, TransitionKind, Treatment
+from .derive import INACTIVE_STATUSES, plain_rows, rows_frame, stored_utc, utc_column
+from .listing import combine, nearest_analysed, orientation_of
 
 BRANCHES = ("heating", "cooling")
 BY_CHOICES = ("superstructure", "origin", "parent", "field", "direction")
@@ -30,14 +31,17 @@ def check_kind(session: Session, kind: str) -> None:
 
 
 def transition_rows(session: Session, kind: str, *, branch: str | None = "heating", method: str | None = None,
-                    run_kind: str | None = None, specimen_ids: list[int] | None = None) -> pd.DataFrame:
+                    run_kind: str | None = None, specimen_ids: list[int] | None = None,
+                    field: bool = True) -> pd.DataFrame:
     """One row per transition of ``kind`` (primary rows, or ``method``'s rows) over active runs.
 
     Columns: specimen, specimen_id, run, started, temperature_K, uncertainty_K, field_T, direction, run_kind.
     Rows without a branch count as the rising-temperature branch (the usual single sweep).
+    ``field=False`` leaves out field_T, which is read from each run's conditions
+    (the slowest column of a large collection), for callers that do not use it.
     """
-    q = (select(Specimen.code, Transition.specimen_id, Transition.run_id, Run.started, Transition.temperature_K,
-                Transition.uncertainty_K, Run.conditions, Run.direction, Run.kind)
+    q = (select(Specimen.code, Transition.specimen_id, Transition.run_id, stored_utc(Run.started),
+                Transition.temperature_K, Transition.uncertainty_K, Run.direction, Run.kind)
          .join(Run, Run.id == Transition.run_id).join(Specimen, Specimen.id == Transition.specimen_id)
          .where(Transition.kind == kind, Transition.current.is_(True), Transition.component == 1,
                 Run.status.not_in(INACTIVE_STATUSES)))
@@ -50,36 +54,72 @@ def transition_rows(session: Session, kind: str, *, branch: str | None = "heatin
         q = q.where(Run.kind == run_kind)
     if specimen_ids is not None:
         q = q.where(Transition.specimen_id.in_(specimen_ids))
-    rows = session.execute(q.order_by(Specimen.code, Run.started, Transition.run_id)).all()
-    frame = pd.DataFrame.from_records(
-        [(r[0], r[1], r[2], r[3], r[4], r[5], (r[6] or {}).get("field_T"), r[7], r[8]) for r in rows],
-        columns=["specimen", "specimen_id", "run", "started", "temperature_K", "uncertainty_K", "field_T",
-                 "direction", "run_kind"])
-    frame["started"] = pd.to_datetime(frame["started"], utc=True)
-    for c in ("temperature_K", "uncertainty_K", "field_T"):
-        frame[c] = pd.to_numeric(frame[c], errors="coerce").astype(float)
+    q = q.order_by(Specimen.code, Run.started, Transition.run_id)
+    names = ["specimen", "specimen_id", "run", "started", "temperature_K", "uncertainty_K", "direction", "run_kind"]
+    if field:
+        # The conditions are JSON: SQLAlchemy decodes them row by row, as it always has.
+        rows = session.execute(q.add_columns(Run.conditions)).all()
+        field_T = [(r[8] or {}).get("field_T") for r in rows]
+    else:
+        rows = plain_rows(session, q)
+    # (Integer columns of an empty result stay object, as they always were.)
+    frame = rows_frame(rows, names,
+                       floats=("temperature_K", "uncertainty_K"), ints=("specimen_id", "run") if rows else (),
+                       convert={"started": utc_column})
+    if field:
+        frame.insert(6, "field_T", pd.to_numeric(pd.Series(field_T, dtype=object), errors="coerce").astype(float))
     return frame
 
 
 def specimen_table(session: Session, by: str | None) -> pd.DataFrame:
     """specimen, x, x_uncertainty and, when grouping by a specimen property, group."""
-    rows = session.execute(select(Specimen.id, Specimen.code, Specimen.parent_id, Origin.name)
-                           .outerjoin(Origin, Origin.id == Specimen.origin_id)).all()
-    codes = {r[0]: r[1] for r in rows}
-    comps = composition_map(session)
-    records = []
-    for sid, code, parent_id, origin in rows:
-        comp = comps.get(sid) or {}
-        group = {"superstructure": comp.get("superstructure"), "origin": origin,
-                 "parent": codes.get(parent_id, code) if parent_id else code}.get(by or "")
-        records.append({"specimen": code, "x": comp.get("x"), "x_uncertainty": comp.get("x_uncertainty"),
-                        "superstructure": comp.get("superstructure"), "group": group})
-    frame = pd.DataFrame.from_records(records, columns=["specimen", "x", "x_uncertainty", "superstructure", "group"])
-    for c in ("x", "x_uncertainty"):
-        frame[c] = pd.to_numeric(frame[c], errors="coerce").astype(float)
+    rows = plain_rows(session, select(Specimen.id, Specimen.code, Specimen.parent_id, Origin.name)
+                      .outerjoin(Origin, Origin.id == Specimen.origin_id))
+    codes = {sid: code for sid, code, _, _ in rows}
+    comps = composition_summary(session, {sid: parent_id for sid, _, parent_id, _ in rows})
+    unknown = (None, None, None)
+    summary = [comps.get(sid, unknown) for sid, _, _, _ in rows]
+    if by == "superstructure":
+        groups = [label for _, _, label in summary]
+    elif by == "origin":
+        groups = [origin for _, _, _, origin in rows]
+    elif by == "parent":
+        groups = [codes.get(parent_id, code) if parent_id else code for _, code, parent_id, _ in rows]
+    else:
+        groups = [None] * len(rows)
+    frame = rows_frame([(code, x, u, label, group) for (_, code, _, _), (x, u, label), group
+                        in zip(rows, summary, groups)],
+                       ["specimen", "x", "x_uncertainty", "superstructure", "group"], floats=("x", "x_uncertainty"))
     if by not in ("superstructure", "origin", "parent"):
         frame = frame.drop(columns="group")
     return frame
+
+
+def composition_summary(session: Session, parents: dict[int, int | None]) -> dict[int, tuple]:
+    """Specimen id -> (x, x_uncertainty, superstructure), as :func:`listing.composition_map` gives them.
+
+    The same combination (:func:`listing.combine`) and inheritance from the nearest
+    analysed ancestor (``parents``: specimen id -> parent id), without loading ORM
+    objects.  A specimen with one analysis -- the usual case -- keeps that analysis's x
+    and uncertainty (what the weighted mean of one value is) without building result
+    objects: ten thousand specimens then cost milliseconds instead of most of a second.
+    """
+    analyses = plain_rows(session, select(Composition.specimen_id, Composition.x, Composition.x_uncertainty,
+                                          Composition.superstructure).order_by(Composition.id))
+    counts = Counter(sid for sid, _, _, _ in analyses)
+    own = {sid: (x, u if u else None, label) for sid, x, u, label in analyses if counts[sid] == 1}
+    several = sorted(sid for sid, n in counts.items() if n > 1)
+    if several:
+        grouped: dict[int, list] = {}
+        for row in session.execute(select(Composition.specimen_id, Composition.x, Composition.x_uncertainty,
+                                          Composition.fe_s_ratio, Composition.fe_s_ratio_uncertainty,
+                                          Composition.basis, Composition.superstructure, Composition.measured_at)
+                                   .where(Composition.specimen_id.in_(several)).order_by(Composition.id)):
+            grouped.setdefault(row.specimen_id, []).append(row)
+        for sid, rows in grouped.items():
+            combined = combine(rows)
+            own[sid] = (combined["x"], combined["x_uncertainty"], combined["superstructure"])
+    return {sid: own[node] for sid, node in nearest_analysed(parents, own).items()}
 
 
 def treatment_table(session: Session) -> pd.DataFrame:
@@ -128,7 +168,7 @@ def shifts(session: Session, *, kind: str, mode: str, reference_K: float | None,
     check_kind(session, kind)
     if by is not None and by not in BY_CHOICES:
         raise InvalidValue(f"--by: {by!r} is not one of {', '.join(BY_CHOICES)}", field="by")
-    rows = transition_rows(session, kind, branch=branch, method=method)
+    rows = transition_rows(session, kind, branch=branch, method=method, field=(by == "field"))
     if by == "direction":
         rows["group"] = direction_groups(session, rows)
     if mode == "run" and reference_run is not None and int(reference_run) not in set(rows["run"]):
@@ -137,7 +177,9 @@ def shifts(session: Session, *, kind: str, mode: str, reference_K: float | None,
             raise NotFound(f"--against-run: run {reference_run} not found", field="against_run")
         raise InvalidValue(f"--against-run: run {reference_run} has no primary {kind} transition on the "
                            f"{branch} branch (derive it first, or choose another run)", field="against_run")
-    specimens = specimen_table(session, by)
+    # Compositions and specimen groups only where they are used: x for the trend, group labels for by.
+    needs_specimens = mode == "trend" or by in ("superstructure", "origin", "parent")
+    specimens = specimen_table(session, by) if needs_specimens else None
     treatments = treatment_table(session) if mode == "treatment" else None
     return shift_stats(rows.drop(columns=["specimen_id", "direction"]), specimens, mode=mode,
                        reference_K=reference_K, reference_run=reference_run, treatments=treatments, sigma=sigma,

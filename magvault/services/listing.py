@@ -48,14 +48,20 @@ def composition_map(session: Session) -> dict[int, dict[str, Any]]:
         by_specimen.setdefault(c.specimen_id, []).append(c)
     parents = dict(session.execute(select(Specimen.id, Specimen.parent_id)).all())
     own = {sid: combine(rows) for sid, rows in by_specimen.items()}
-    out: dict[int, dict[str, Any]] = {}
+    return {sid: {**own[node], "inherited": node != sid, "from_specimen_id": node}
+            for sid, node in nearest_analysed(parents, own).items()}
+
+
+def nearest_analysed(parents: dict[int, int | None], analysed) -> dict[int, int]:
+    """Specimen id -> itself or its nearest ancestor in ``analysed`` (specimens with none are left out)."""
+    out: dict[int, int] = {}
     for sid in parents:
         node, seen = sid, set()
-        while node is not None and node not in own and node not in seen:
+        while node is not None and node not in analysed and node not in seen:
             seen.add(node)
             node = parents.get(node)
-        if node is not None and node in own:
-            out[sid] = {**own[node], "inherited": node != sid, "from_specimen_id": node}
+        if node is not None and node in analysed:
+            out[sid] = node
     return out
 
 

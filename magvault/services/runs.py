@@ -11,7 +11,7 @@ from sqlalchemy import select
 from sqlalchemy.orm import Session
 
 from ..errors import InvalidValue, NotFound
-from ..store.frames import pack_frame, unpack_frame
+from ..store.frames import unpack_frame
 from ..store.models import RawFile, Run, Series, Specimen
 from ..timeutil import iso
 from . import events
@@ -26,18 +26,25 @@ def store_raw(session: Session, data: bytes, name: str, media_type: str, digest:
 
     ``INSERT ... ON CONFLICT DO NOTHING`` lets the second writer through without
     an error (on PostgreSQL it waits for the first to commit); the row is then
-    read back.
+    read back.  The bytes are bound at execution, never written into the
+    statement: SQLAlchemy caches compiled statements, and a cached ``.values(data=...)``
+    would keep the first file a process stores in memory until it exits.
     """
     digest = digest or sha256(data)
-    table = RawFile.__table__
     dialect = session.get_bind().dialect.name
     if dialect == "postgresql":
         from sqlalchemy.dialects.postgresql import insert
     else:
         from sqlalchemy.dialects.sqlite import insert
-    stmt = insert(table).values(sha256=digest, size=len(data), media_type=media_type, first_name=name[:255],
-                                data=data, stored_at=dt.datetime.now(dt.timezone.utc))
-    session.execute(stmt.on_conflict_do_nothing(index_elements=["sha256"]))
+    statement = insert(RawFile.__table__).on_conflict_do_nothing(index_elements=["sha256"])
+    values = {"sha256": digest, "size": len(data), "media_type": media_type, "first_name": name[:255],
+              "data": data, "stored_at": dt.datetime.now(dt.timezone.utc)}
+    session.execute(statement, values)
+    if dialect == "sqlite":
+        # Python's sqlite3 keeps a cached statement's bound values (SQLite's own copy of the
+        # file) until the statement runs again.  Running it again with the same digest and no
+        # bytes -- a conflict, so nothing is written -- lets that copy go now.
+        session.execute(statement, {**values, "size": 0, "data": b""})
     raw = session.scalar(select(RawFile).where(RawFile.sha256 == digest))
     assert raw is not None
     return raw
@@ -72,16 +79,20 @@ def log_run(session: Session, specimen: Specimen, data: dict[str, Any], instrume
     return run
 
 
-def store_series(session: Session, run: Run, frame: pd.DataFrame, *, shape: str, encoding: str | None,
-                 profile_name: str | None, mapping: list[dict[str, Any]]) -> Series:
+def store_series(session: Session, run: Run, packed: bytes | memoryview, *, columns: list[str], n_rows: int,
+                 shape: str, encoding: str | None, profile_name: str | None,
+                 mapping: list[dict[str, Any]]) -> None:
+    """Add the run's next series version from a frame packed with :func:`magvault.store.frames.pack_frame`.
+
+    The caller packs (and lets the frame go) first, so a large import holds one copy.
+    """
     latest = session.scalar(select(Series.version).where(Series.run_id == run.id)
                             .order_by(Series.version.desc()).limit(1)) or 0
-    series = Series(run_id=run.id, version=latest + 1, shape=shape, encoding=encoding,
-                    profile_name=profile_name, mapping=mapping, columns=[str(c) for c in frame.columns],
-                    n_rows=len(frame), data=pack_frame(frame))
+    series = Series(run_id=run.id, version=latest + 1, shape=shape, encoding=encoding, profile_name=profile_name,
+                    mapping=mapping, columns=columns, n_rows=n_rows, data=packed)
     session.add(series)
     session.flush()
-    return series
+    session.expire(series, ["data"])  # written; do not keep the packed copy alive until commit
 
 
 def latest_series(session: Session, run_id: int) -> Series | None:
