@@ -593,6 +593,19 @@ def query_show(state: State, name, as_json) -> None:
         click.echo(json.dumps(doc, indent=1))
 
 
+@query.command("delete")
+@click.argument("name")
+@json_option
+@pass_state
+def query_delete(state: State, name, as_json) -> None:
+    """Remove a saved query (the event log keeps its parameters)."""
+    doc = state.vault().delete_saved_query(name)
+    if as_json:
+        emit_json(doc)
+    else:
+        click.echo(f"deleted saved query {name!r} ({doc['query']})")
+
+
 @query.command("run")
 @click.argument("name")
 @json_option

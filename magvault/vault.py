@@ -560,6 +560,13 @@ class Vault:
         with self.read() as s:
             return saved.get(s, name)
 
+    def delete_saved_query(self, name: str) -> dict[str, Any]:
+        """Remove a saved query by name (the event log keeps its parameters); returns what it was."""
+        from .services import saved
+
+        with self.write() as s:
+            return saved.delete(s, name)
+
     def run_saved_query(self, name: str):
         """Re-run a saved query by name with its stored parameters."""
         doc = self.saved_query(name)

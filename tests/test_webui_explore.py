@@ -460,6 +460,30 @@ def test_queries_saved_by_the_command_line_open_in_their_page(site):
     assert "no saved query named “never saved”" in text_of(_get(client, r.headers["Location"]))
 
 
+def test_a_saved_query_is_deleted_from_the_page_and_the_command_line_with_its_event(site):
+    app, _, path = site
+    vault = app.extensions["magvault"]
+    client = app.test_client()
+    vault.save_query("to drop", "shifts", {"kind": "low-t", "against": "collection"}, replace=True)
+    vault.save_query("to drop too", "shifts", {"kind": "low-t", "against": "earliest"}, replace=True)
+    html = _get(client, "/saved")
+    r = client.post("/saved/delete", data={"csrf_token": csrf_token(html), "name": "to drop"})
+    assert r.status_code == 302
+    assert "Deleted “to drop” (shifts)" in text_of(_get(client, r.headers["Location"]))
+    assert "to drop" not in {d["name"] for d in vault.saved_queries()}
+    assert client.post("/saved/delete", data={"name": "to drop too"}).status_code == 400  # no CSRF token
+    from magvault.cli import main
+
+    out = CliRunner().invoke(main, ["--db", path, "query", "delete", "to drop too", "--json"])
+    assert out.exit_code == 0, out.output
+    assert json.loads(out.output)["parameters"] == {"kind": "low-t", "against": "earliest"}
+    out = CliRunner().invoke(main, ["--db", path, "query", "delete", "to drop too"])
+    assert out.exit_code == 1 and "no saved query named 'to drop too'" in out.output
+    log = vault.events()
+    deleted = log[(log["entity"] == "saved_query") & (log["action"] == "delete")]
+    assert {"to drop", "to drop too"} <= set(deleted["entity_id"].astype(str))
+
+
 # --- every page ------------------------------------------------------------------------------------
 
 def test_every_page_links_the_explore_pages_and_keeps_a_strict_policy(site):

@@ -270,21 +270,22 @@ def test_supersede_points_to_the_replacing_run(site):
     assert f'Superseded by <a href="/run/{new}">run {new}</a>' in _get(c, f"/run/{old}")
 
 
-def test_derive_action_matches_what_the_vault_offers(site):
+def test_derive_action_is_offered_for_analysed_kinds_only(site):
     app, made = site
     vault = app.extensions["magvault"]
     c = app.test_client()
     page = _get(c, f"/run/{made.thermo_run}")
-    if not callable(getattr(vault, "derive", None)):
-        # This Vault cannot derive: the page says so and the action refuses plainly (no 500).
-        assert "Deriving is not available in this installation" in text_of(page)
-        r = _post(c, f"/run/{made.thermo_run}/derive", {}, f"/run/{made.thermo_run}", status=501)
-        assert "cannot derive" in text_of(r.get_data(as_text=True))
-    else:
-        assert f'action="/run/{made.thermo_run}/derive"' in page
-        _post(c, f"/run/{made.thermo_run}/derive", {}, f"/run/{made.thermo_run}")
-        derived = text_of(_get(c, f"/run/{made.thermo_run}"))
-        assert vault.derivations(made.thermo_run) and "version" in derived
+    assert f'action="/run/{made.thermo_run}/derive"' in page
+    _post(c, f"/run/{made.thermo_run}/derive", {}, f"/run/{made.thermo_run}")
+    derived = text_of(_get(c, f"/run/{made.thermo_run}"))
+    assert vault.derivations(made.thermo_run) and "version" in derived
+    # A kind with no analysis yet: the page says so rather than offering a button that does nothing.
+    csv = "Frequency (kHz),Amplitude (V)\n" + "".join(
+        f"{f / 10},{1 / (1 + (f / 10 - 500) ** 2):.5f}\n" for f in range(4900, 5100))
+    rus = vault.ingest(data=csv.encode(), source_name="rus.csv", specimen=made.piece, kind="resonance")
+    page = _get(c, f"/run/{rus.run_id}")
+    assert f'action="/run/{rus.run_id}/derive"' not in page
+    assert "no analysis for resonance runs yet" in text_of(page)
 
 
 # --- bench ---------------------------------------------------------------------------------------

@@ -141,7 +141,8 @@ def azimuth_elevation(vectors) -> tuple[np.ndarray, np.ndarray]:
 
 
 def check_rotation(matrix, *, tolerance: float = 1e-6, field: str = "orientation") -> np.ndarray:
-    """A proper rotation matrix, or InvalidValue.
+    """A proper rotation matrix, or InvalidValue (the registry's own check,
+    :func:`magvault.analysis.orientation.read_rotation_matrix`, at a tight tolerance).
 
     Parameters
     ----------
@@ -151,24 +152,16 @@ def check_rotation(matrix, *, tolerance: float = 1e-6, field: str = "orientation
         c* (the usual orthogonalisation of the International Tables, also
         gemmi's).
     tolerance : float
-        Largest accepted deviation of R R^T from the identity.
+        Largest accepted element-wise deviation from the nearest rotation.
 
     Returns
     -------
     numpy.ndarray
         The matrix as floats.
     """
-    r = np.asarray(matrix, dtype=float)
-    if r.shape != (3, 3) or not np.all(np.isfinite(r)):
-        raise InvalidValue(f"{field}: shape {np.shape(matrix)}; expected a finite 3x3 matrix",
-                           field=field)
-    deviation = float(np.max(np.abs(r @ r.T - np.eye(3))))
-    if deviation > tolerance:
-        raise InvalidValue(f"{field}: not orthonormal (largest deviation of R R^T from I is "
-                           f"{deviation:.2g}, tolerance {tolerance:g})", field=field)
-    if np.linalg.det(r) < 0:
-        raise InvalidValue(f"{field}: determinant -1, a reflection, not a rotation", field=field)
-    return r
+    from .orientation import read_rotation_matrix
+
+    return np.asarray(read_rotation_matrix(np.asarray(matrix, dtype=float), tolerance, option=field).matrix)
 
 
 def to_crystal_frame(vectors_specimen, orientation) -> np.ndarray:

@@ -32,6 +32,17 @@ def save(session: Session, name: str, query: str, parameters: dict[str, Any], *,
                       after={"query": query, "parameters": params})
 
 
+def delete(session: Session, name: str) -> dict[str, Any]:
+    """Remove a saved query; the event log keeps what it was, so it can be saved again by hand."""
+    row = session.scalar(select(SavedQuery).where(SavedQuery.name == name))
+    if row is None:
+        raise NotFound(f"no saved query named {name!r}; `magvault query list` shows them", field="name")
+    doc = _doc(row)
+    events.record(session, "delete", "saved_query", name, before={"query": row.query, "parameters": row.parameters})
+    session.delete(row)
+    return doc
+
+
 def get(session: Session, name: str) -> dict[str, Any]:
     row = session.scalar(select(SavedQuery).where(SavedQuery.name == name))
     if row is None:

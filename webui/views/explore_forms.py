@@ -127,6 +127,11 @@ class SaveQueryForm(FlaskForm):
     submit = SubmitField("Save")
 
 
+class DeleteSavedForm(FlaskForm):
+    name = HiddenField()
+    submit = SubmitField("Delete")
+
+
 def check_choice(field, allowed: Iterable[Any], label: str, default: Any) -> Any:
     """The field's value when it is one of ``allowed``; else an inline error and ``default``.
 

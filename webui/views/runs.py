@@ -7,6 +7,7 @@ import re
 
 from flask import Blueprint, Response, abort, current_app, flash, redirect, render_template, send_file, url_for
 
+from magvault.analysis.pipeline import ANALYSED_KINDS
 from magvault.errors import MagvaultError
 
 from .. import security
@@ -45,7 +46,7 @@ def run_context(run_id: int, *, retract_form=None, supersede_form=None, image_fo
         retract_form=retract_form or RetractForm(formdata=None),
         supersede_form=supersede_form, derive_form=DeriveForm(formdata=None),
         image_form=image_form or ImageForm(formdata=None, run=str(run_id)),
-        can_derive=callable(getattr(v, "derive", None)),
+        can_derive=doc["kind"] in ANALYSED_KINDS,
         inactive=doc["status"] in INACTIVE,
     )
 
@@ -128,8 +129,6 @@ def derive(run_id: int):
     v = vault()
     if not form.validate_on_submit():
         abort(400, description="the form was incomplete; reload the page and try again")
-    if not callable(getattr(v, "derive", None)):
-        abort(501, description="this installation of magvault cannot derive values yet")
     try:
         summary = v.derive(run=run_id)
     except MagvaultError as exc:

@@ -18,7 +18,7 @@ from magvault.errors import MagvaultError, NotFound
 
 from . import coupled, overlay, phase_map, shifts
 from .common import vault
-from .explore_forms import SaveQueryForm, page_message
+from .explore_forms import DeleteSavedForm, SaveQueryForm, page_message
 
 bp = Blueprint("saved", __name__)
 
@@ -62,7 +62,23 @@ def index():
         page = PAGES[doc["query"]][2] if doc["query"] in PAGES else ("Shifts" if doc["query"] == "correlate" else None)
         rows.append({**doc, "href": address(doc), "text": described(doc), "page": page,
                      "as_selection": url_for("overlay.index", source="saved", saved=doc["name"])})
-    return render_template("saved.html", rows=rows)
+    return render_template("saved.html", rows=rows, delete_form=DeleteSavedForm(formdata=None))
+
+
+@bp.post("/saved/delete")
+def delete():
+    form = DeleteSavedForm()
+    name = (form.name.data or "").strip()
+    if not form.validate_on_submit() or not name:
+        flash("delete: the form was incomplete; reload the page and try again", "error")
+        return redirect(url_for("saved.index"))
+    try:
+        doc = vault().delete_saved_query(name)
+    except MagvaultError as exc:
+        flash(page_message(exc), "error")
+    else:
+        flash(f"Deleted “{name}” ({doc['query']}); the events log keeps its settings.", "ok")
+    return redirect(url_for("saved.index"))
 
 
 @bp.post("/saved")
