@@ -379,6 +379,11 @@ class Vault:
         with self.read() as s:
             return run_service.read_series(s, _run_id(run_id), version)
 
+    def series_of(self, run_ids) -> dict[int, pd.DataFrame]:
+        """The newest series of many runs at once (one read; runs without data are left out)."""
+        with self.read() as s:
+            return run_service.read_latest_series(s, sorted({_run_id(r) for r in run_ids}))
+
     def raw_file(self, sha256: str) -> tuple[bytes, str, str]:
         """The exact stored bytes for a SHA-256, with their first file name and media type."""
         with self.read() as s:

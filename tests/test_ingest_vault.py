@@ -6,6 +6,7 @@ import json
 import multiprocessing
 
 import numpy as np
+import pandas as pd
 import pytest
 from click.testing import CliRunner
 from sqlalchemy import text
@@ -203,3 +204,24 @@ def test_cli_ingest_prints_the_run_id_and_refuses_with_exit_1(db_url, curve):
     runs = json.loads(runner.invoke(main, ["--db", db_url, "runs", "--json"]).stdout)
     assert len(runs) == 1
     assert issubclass(InputFileError, MagvaultError)
+
+
+def test_many_runs_series_are_read_at_once_newest_version_first(vault, curve):
+    """The overlay page reads hundreds of runs' series in one statement; each must be its run's newest."""
+    from magvault.services import runs as run_service
+    from magvault.store.frames import pack_frame
+
+    vault.add_specimen("S1")
+    first = vault.ingest(curve, specimen="S1", kind="thermomagnetic").run_id
+    second = vault.ingest(curve, specimen="S1", kind="thermomagnetic", again=True).run_id
+    planned = vault.log_run("S1", "thermomagnetic")
+    corrected = vault.series(second).assign(temperature_K=lambda f: f["temperature_K"] + 0.5)
+    with vault.write() as s:
+        run_service.store_series(s, run_service.get_run(s, second), pack_frame(corrected),
+                                 columns=list(corrected.columns), n_rows=len(corrected), shape="delimited",
+                                 encoding="utf-8", profile_name=None, mapping=[])
+    got = vault.series_of([first, second, planned, str(second)])
+    assert set(got) == {first, second}
+    pd.testing.assert_frame_equal(got[first], vault.series(first))
+    pd.testing.assert_frame_equal(got[second], corrected)
+    assert vault.series(second, version=1)["temperature_K"].iloc[0] + 0.5 == got[second]["temperature_K"].iloc[0]

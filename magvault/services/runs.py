@@ -7,7 +7,7 @@ import hashlib
 from typing import Any
 
 import pandas as pd
-from sqlalchemy import select
+from sqlalchemy import func, select
 from sqlalchemy.orm import Session
 
 from ..errors import InvalidValue, NotFound
@@ -97,6 +97,17 @@ def store_series(session: Session, run: Run, packed: bytes | memoryview, *, colu
 
 def latest_series(session: Session, run_id: int) -> Series | None:
     return session.scalar(select(Series).where(Series.run_id == run_id).order_by(Series.version.desc()).limit(1))
+
+
+def read_latest_series(session: Session, run_ids: list[int]) -> dict[int, pd.DataFrame]:
+    """Run id -> its newest series, for many runs in one statement (runs without data are left out)."""
+    if not run_ids:
+        return {}
+    newest = (select(Series.run_id, func.max(Series.version).label("version"))
+              .where(Series.run_id.in_(run_ids)).group_by(Series.run_id).subquery())
+    rows = session.execute(select(Series.run_id, Series.data)
+                           .join(newest, (Series.run_id == newest.c.run_id) & (Series.version == newest.c.version)))
+    return {run_id: unpack_frame(data) for run_id, data in rows}
 
 
 def read_series(session: Session, run_id: int, version: int | None = None) -> pd.DataFrame:

@@ -352,7 +352,7 @@ def build(v, params: OverlayParams, chosen: Chosen, ctx: dict[str, Any]) -> dict
 
     lo, hi = span_of(params, ctx["windows"].get(params.kind))
     wanted_branches = _branches_wanted(params.branch)
-    series_of = {int(rid): v.series(int(rid)) for rid in runs["id"]}
+    series_of = v.series_of(runs["id"])
     fixed_column = None
     if params.norm == "none":
         # One unit for all curves: the first candidate that the most runs have.
@@ -363,7 +363,10 @@ def build(v, params: OverlayParams, chosen: Chosen, ctx: dict[str, Any]) -> dict
     prepared: list[Prepared] = []
     used_columns: set[str] = set()
     for rid, code in zip(runs["id"], runs["specimen"]):
-        series = series_of[int(rid)]
+        series = series_of.get(int(rid))
+        if series is None:
+            left_out["no data yet"] += 1
+            continue
         column = y_column(series, params.run_kind, fixed_column)
         if column is None or "temperature_K" not in series.columns:
             what = column_label(fixed_column) if fixed_column else "quantity to plot against temperature"
