@@ -334,7 +334,7 @@ def test_parameters_are_recorded_and_rerun_is_identical():
                 **{k: (list(v) if isinstance(v, tuple) else v)
                    for k, v in dataclasses.asdict(OrderingSettings()).items()}}
     assert first.parameters == expected
-    assert first.method == "ordering-temperature" and first.version == "1.0"
+    assert first.method == "ordering-temperature" and first.version == "1.1"
     assert set(first.diagnostics["method_versions"]) >= set(METHODS)
     wider = analyse_ordering(T_GRID, y, savgol_window_K=15.0, seed=7)
     assert wider.parameters["savgol_window_K"] == 15.0 and wider.parameters["seed"] == 7
@@ -417,11 +417,16 @@ def test_series_of_a_susceptibility_gives_three_outcomes():
     primaries = {t.branch: t for t in ordering.transitions if t.primary}
     assert abs(primaries["heating"].temperature_K - 590.0) <= 2 * primaries["heating"].uncertainty_K
     assert abs(primaries["cooling"].temperature_K - 588.0) <= 2 * primaries["cooling"].uncertainty_K
+    # M ~ (Tc - T)^beta describes a spontaneous moment, not chi: no power-law row and no beta, said so.
+    assert {t.method for t in ordering.transitions} == {"dmdt-extremum", "two-tangent", "combined"}
+    assert ordering.parameters["power_law"] is False
+    assert not any(r.quantity == "beta" for r in ordering.results)
     assert low.transitions == () and all("search_ceiling_K" in w for w in low.warnings)
     theta = next(r for r in cw.results if r.quantity == "theta_K")
     assert abs(theta.value - 590.0) <= 3 * theta.uncertainty
     moment_only = analyse_series(T, reduced_magnetisation(T, 590.0))
     assert [o.method for o in moment_only] == ["ordering-temperature", "low-temperature-peaks"]
+    assert "power-law" in {t.method for t in moment_only[0].transitions}
 
 
 def test_paramagnetic_tail_holds_no_ordering_transition():

@@ -77,7 +77,7 @@ __all__ = [
     "thermal_hysteresis", "alteration_check", "analyse_ordering", "analyse_series",
 ]
 
-VERSION = "1.0"
+VERSION = "1.1"  # 1.1: no power-law fit for a susceptibility
 BRANCHES = ("heating", "cooling")
 #: Catalogue kinds that are ordering transitions (the magnetisation vanishes).
 ORDERING_KINDS = ("ordering", "magnetite-curie")
@@ -138,6 +138,11 @@ class OrderingSettings:
         ... up to this many kelvin above the steepest point.
     power_law_beta_bounds : tuple of float
         Bounds of the free exponent beta.
+    power_law : bool
+        Whether to fit the power law at all.  It describes a spontaneous
+        magnetisation M ~ (Tc - T)^beta, so :func:`analyse_series` turns it
+        off for a susceptibility, whose Hopkinson peak and paramagnetic tail
+        follow no such law.
     n_bootstrap : int
         Residual-bootstrap resamples for the derivative and two-tangent
         uncertainties.
@@ -170,6 +175,7 @@ class OrderingSettings:
     power_law_upper_fraction: float = 0.5
     power_law_above_K: float = 10.0
     power_law_beta_bounds: tuple[float, float] = (0.05, 1.5)
+    power_law: bool = True
     n_bootstrap: int = 40
     seed: int = 0
     alteration_align: bool = True
@@ -1062,6 +1068,8 @@ def _branch_estimates(curve: UniformCurve, search: tuple[float, float], s: Order
         rows["two-tangent"] = two_tangent(curve, n_bootstrap=s.n_bootstrap, seed=seed, **common, **tail)
     except TransitionNotFound as exc:
         notes.append(f"{branch}: two-tangent: {exc}")
+    if not s.power_law:
+        return rows, beta
     try:
         fit = power_law_fit(curve, upper_fraction=s.power_law_upper_fraction, above_K=s.power_law_above_K,
                             beta_bounds=tuple(s.power_law_beta_bounds), **common, **tail)
@@ -1227,8 +1235,9 @@ def analyse_series(temperature_K, signal, branch=None, *, run_kind: str = "therm
     from .curieweiss import analyse_curie_weiss
     from .lowtemp import analyse_low_temperature
 
+    ordering = {"power_law": signal_kind != "susceptibility", **(ordering_options or {})}
     outcomes = [
-        analyse_ordering(temperature_K, signal, branch, run_kind=run_kind, **(ordering_options or {})),
+        analyse_ordering(temperature_K, signal, branch, run_kind=run_kind, **ordering),
         analyse_low_temperature(temperature_K, signal, branch, run_kind=run_kind, signal_kind=signal_kind,
                                 **(low_temperature_options or {})),
     ]
