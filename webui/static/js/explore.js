@@ -1,52 +1,10 @@
-/* The pages that look across the collection (overlay, shifts, map, coupled).
-   - Draws each <script type="application/json" data-explore-figure="ID"> (a plotly figure built by
-     the server) into the element with that id; clicking a point or a curve opens its run or
-     specimen page (addresses on this server only).
+/* The pages that look across the collection (overlay, shifts, map, coupled); their figures are
+   drawn by figures.js.
    - Makes tables with data-sortable sortable by their column buttons.
    - Colours the small swatches of marker tables (set through the DOM, so no inline styles).
    No inline scripts anywhere (the content security policy allows scripts from this server only). */
 (function () {
   "use strict";
-
-  function localAddress(value) {
-    return typeof value === "string" && value.charAt(0) === "/" && value.charAt(1) !== "/" ? value : null;
-  }
-
-  function follow(event) {
-    var p = event && event.points && event.points[0];
-    if (!p) { return; }
-    var href = localAddress(p.customdata) || localAddress(p.data && p.data.meta);
-    if (href) { window.location.assign(href); }
-  }
-
-  function draw() {
-    document.querySelectorAll('script[type="application/json"][data-explore-figure]').forEach(function (block) {
-      var target = document.getElementById(block.getAttribute("data-explore-figure"));
-      if (!target) { return; }
-      if (typeof window.Plotly === "undefined") {
-        target.textContent = "The plotting library did not load; the table on this page holds the same values.";
-        target.classList.add("plot-failed");
-        return;
-      }
-      var figure;
-      try {
-        figure = JSON.parse(block.textContent);
-      } catch (err) {
-        target.textContent = "This figure could not be read.";
-        target.classList.add("plot-failed");
-        return;
-      }
-      window.Plotly.newPlot(target, figure.data, figure.layout, {
-        responsive: true,
-        displaylogo: false,
-        modeBarButtonsToRemove: ["lasso2d", "select2d"],
-        toImageButtonOptions: { format: "png", scale: 2 }
-      }).then(function () {
-        target.on("plotly_click", follow);
-        target.setAttribute("data-drawn", "yes");
-      });
-    });
-  }
 
   function cellValue(row, index) {
     var cell = row.cells[index];
@@ -91,7 +49,6 @@
   }
 
   function start() {
-    draw();
     document.querySelectorAll("table[data-sortable]").forEach(sortable);
     swatches();
   }
