@@ -120,6 +120,23 @@ def test_without_a_mass_the_normalised_panel_is_scaled_and_says_so():
     assert _figure(panel)["layout"]["yaxis"]["title"]["text"] == "Moment / max |Moment|"
 
 
+def test_a_volume_susceptibility_is_scaled_with_its_symbol_and_the_reason():
+    T = np.linspace(5.0, 60.0, 50)
+    series = pd.DataFrame({"temperature_K": T, "chi_vol": 0.11 + 0.002 * (T > 32)})
+    panel = figures.run_panels(series, "susceptibility", [], max_points=None)[-1]
+    assert _figure(panel)["layout"]["yaxis"]["title"]["text"] == "χ / max |χ|"
+    assert "needs the density" in panel.note and "no mass recorded" not in panel.note
+
+
+def test_a_legend_of_many_blocks_grows_the_figure_below_the_axis_title():
+    f = np.linspace(4e5, 7e5, 200)
+    series = pd.concat([pd.DataFrame({"frequency_Hz": f, "amplitude": np.exp(-((f - 5e5 - t) / 2e3) ** 2),
+                                      "block_temperature_K": t}) for t in np.arange(300.0, 660.0, 25.0)])
+    layout = _figure(figures.run_panels(series, "resonance", [], max_points=None)[0])["layout"]
+    assert layout["legend"]["yanchor"] == "top" and layout["legend"]["y"] < -0.15
+    assert layout["height"] > 380 and layout["margin"]["b"] > 60
+
+
 def test_labels_are_unicode_and_figures_are_valid_plotly():
     for kind, frame in [
         ("thermomagnetic", _thermo_series(50)),

@@ -138,7 +138,10 @@ def exponent_format(values: np.ndarray) -> str:
 
 
 def _layout(title: str, x_title: str, y_title: str, legend_title: str | None,
-            x_format: str = "power", y_format: str = "power") -> dict[str, Any]:
+            x_format: str = "power", y_format: str = "power", legend_rows: int = 0) -> dict[str, Any]:
+    # A legend goes below the x-axis title; the figure grows by its rows so that neither overlaps the plot.
+    extra = 22 * legend_rows
+    plot_height = 380 - 44 - 60
     return dict(
         title=dict(text=title, x=0.0, xanchor="left", font=dict(size=15)),
         template="none",
@@ -148,9 +151,9 @@ def _layout(title: str, x_title: str, y_title: str, legend_title: str | None,
                    gridcolor="#e6e9ec", zeroline=False, exponentformat=x_format),
         yaxis=dict(title=dict(text=y_title), showline=True, linecolor="#55606e", ticks="outside",
                    gridcolor="#e6e9ec", zeroline=False, exponentformat=y_format),
-        legend=dict(title=dict(text=legend_title or ""), orientation="h", y=-0.22, x=0.0,
-                    entrywidth=76, entrywidthmode="pixels"),
-        margin=dict(l=70, r=20, t=44, b=60), height=380, hovermode="closest",
+        legend=dict(title=dict(text=legend_title or "", side="top"), orientation="h", x=0.0,
+                    y=-58 / plot_height, yanchor="top", entrywidth=76, entrywidthmode="pixels"),
+        margin=dict(l=70, r=20, t=44, b=60 + extra), height=380 + extra, hovermode="closest",
         colorway=list(PALETTE),
     )
 
@@ -222,13 +225,19 @@ def run_panels(series: pd.DataFrame, kind: str, mapping: Sequence[dict[str, Any]
                 peak = np.nanmax(np.abs(y_si)) if np.isfinite(y_si).any() else 0.0
                 y_vals = y_si / peak if peak > 0 else y_si
                 name = COLUMN_LABELS.get(col, (col,))[0]
-                y_title = f"{name} / max |{name}|"
-                note = ("no mass recorded: scaled to its largest magnitude" if norm_candidates
-                        else "scaled to its largest magnitude")
+                symbol = name.split()[-1] if len(name.split()[-1]) <= 2 else name  # "Volume susceptibility χ" -> χ
+                y_title = f"{symbol} / max |{symbol}|"
+                if col.startswith("chi_vol"):
+                    note = "a volume susceptibility needs the density to be per mass: scaled to its largest magnitude"
+                elif norm_candidates:
+                    note = "no mass recorded: scaled to its largest magnitude"
+                else:
+                    note = "scaled to its largest magnitude"
             else:
                 y_vals, y_title, note = y_si, column_label(col), ""
+        named = sum(1 for name, _ in groups if name)
         fig = go.Figure(layout=_layout(title, x_title, y_title, legend, exponent_format(x_vals),
-                                       exponent_format(y_vals)))
+                                       exponent_format(y_vals), legend_rows=-(-named // 3) + 1 if named else 0))
         kept = [rows[decimate(x_si[rows], y_si[rows], max_points)] for _, rows in groups]
         kept_total = sum(len(k) for k in kept)
         for (name, _), keep in zip(groups, kept):
