@@ -75,7 +75,7 @@ from .options import settings_from_options
 from .results import Outcome, ResultValue, TransitionEstimate
 
 __all__ = [
-    "VERSION", "METHOD", "LorentzianFit", "FitFailed", "ResonanceSettings", "ModePeak", "Break",
+    "VERSION", "METHOD", "LorentzianFit", "FitFailed", "ResonanceSettings", "ModePeak", "Break", "Combined",
     "fit_lorentzian", "spectrum_noise", "qinv_peaks", "f2_break", "combine_estimates",
     "analyse_resonance", "from_series",
 ]
@@ -634,6 +634,8 @@ def _break_candidates(T, f, uf, s: ResonanceSettings) -> list[int]:
 
 @dataclass(frozen=True)
 class Combined:
+    """A combined estimate: value, standard uncertainty, Birge ratio (None for one estimate), count."""
+
     value: float
     uncertainty: float
     birge_ratio: float | None
