@@ -47,7 +47,7 @@ SEED_KINDS: tuple[TransitionKind, ...] = (
                    ("thermomagnetic", "susceptibility", "resonance", "calorimetry", "hysteresis"),
                    "pyrrhotite (4C)", "Belongs to 4C-bearing pyrrhotite near Fe7S8; absent in troilite."),
     TransitionKind("spin-reorientation", "Spin reorientation of troilite", (410.0, 450.0), (380.0, 462.0),
-                   ("thermomagnetic", "susceptibility", "resonance", "diffraction"), "troilite"),
+                   ("thermomagnetic", "susceptibility", "resonance", "diffraction", "calorimetry"), "troilite"),
     TransitionKind("vacancy-order", "Vacancy order-disorder of pyrrhotite", (470.0, 500.0), (455.0, 535.0),
                    ("diffraction", "calorimetry", "resonance", "susceptibility", "thermomagnetic"),
                    "pyrrhotite"),

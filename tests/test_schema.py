@@ -156,3 +156,16 @@ def test_event_log_refuses_update_and_delete(db_url):
             assert conn.execute(text("SELECT action FROM event")).scalar_one() == "create"
     finally:
         engine.dispose()
+
+
+def test_the_catalogue_at_head_is_the_code_s_catalogue(db_url):
+    """Migrations freeze what they seed; later catalogue edits must come with a migration of their own."""
+    import magvault
+    from magvault.catalogue import SEED_KINDS
+
+    with magvault.open(db_url) as vault:
+        stored = {k["id"]: k for k in vault.kinds()}
+    for kind in SEED_KINDS:
+        assert sorted(stored[kind.id]["run_kinds"]) == sorted(kind.run_kinds), kind.id
+        assert tuple(stored[kind.id]["window_K"]) == kind.window_K
+    assert "calorimetry" in stored["spin-reorientation"]["run_kinds"]

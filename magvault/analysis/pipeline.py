@@ -25,7 +25,8 @@ _SIGNALS = {
     "susceptibility": (("chi_vol", "susceptibility"), ("chi_mass_m3_per_kg", "susceptibility"),
                        ("moment_A_m2", "moment"), ("moment_A_m2_per_kg", "moment")),
 }
-ANALYSED_KINDS = ("thermomagnetic", "susceptibility", "hysteresis", "backfield")
+ANALYSED_KINDS = ("thermomagnetic", "susceptibility", "hysteresis", "backfield", "diffraction",
+                  "calorimetry")
 
 
 class NothingToAnalyse(MagvaultError):
@@ -54,6 +55,14 @@ def analyse_run(run_kind: str, frame: pd.DataFrame, conditions: Mapping[str, Any
         return [analyse_loops(frame, conditions)]
     if run_kind == "backfield":
         return [analyse_backfields(frame, conditions)]
+    if run_kind == "diffraction":
+        from .diffraction import from_series as lattice_from_series
+
+        return [lattice_from_series(frame, conditions)]
+    if run_kind == "calorimetry":
+        from .calorimetry import from_series as heat_capacity_from_series
+
+        return [heat_capacity_from_series(frame, conditions)]
     return []
 
 

@@ -88,6 +88,25 @@ def _store(vault: "Vault", outcomes: list[Outcome], inputs: list[_RunData], summ
             summary.results += len(o.results)
 
 
+def _with_formula(vault: "Vault", data: _RunData) -> dict[str, Any]:
+    """Run conditions plus the formula facts a Debye baseline needs, from the specimen's composition.
+
+    Fe(1-x)S has 2 - x atoms per formula unit and a molar mass of (1 - x) M(Fe) + M(S);
+    without a composition the analysis fits an effective atom count and says so.
+    Values the run itself states are kept.
+    """
+    from ..analysis.composition import ATOMIC_WEIGHTS
+    from .listing import composition_map
+
+    with vault.read() as s:
+        comp = composition_map(s).get(data.specimen_id)
+    if not comp or comp.get("x") is None:
+        return data.conditions
+    x = float(comp["x"])
+    molar_g = (1.0 - x) * ATOMIC_WEIGHTS["Fe"][0] + ATOMIC_WEIGHTS["S"][0]
+    return {"atoms_per_formula": 2.0 - x, "molar_mass_kg_per_mol": molar_g * 1e-3, **data.conditions}
+
+
 def derive_runs(vault: "Vault", run_ids: list[int]) -> DeriveSummary:
     summary = DeriveSummary()
     loops: dict[int, Outcome] = {}
@@ -102,8 +121,9 @@ def derive_runs(vault: "Vault", run_ids: list[int]) -> DeriveSummary:
             summary.skipped.append(f"run {run_id}: no analysis for {data.kind} runs yet")
             continue
         summary.runs += 1
+        conditions = _with_formula(vault, data) if data.kind == "calorimetry" else data.conditions
         try:
-            outcomes = pipeline.analyse_run(data.kind, data.frame, data.conditions)
+            outcomes = pipeline.analyse_run(data.kind, data.frame, conditions)
         except ANALYSIS_ERRORS as exc:
             summary.failed.append(f"run {run_id} ({data.specimen}, {data.kind}): {exc}")
             continue

@@ -15,7 +15,6 @@ import magvault.store.base
 from sqlalchemy import Text
 from sqlalchemy.dialects import postgresql
 
-from magvault.catalogue import SEED_KINDS
 
 revision = '0001'
 down_revision = None
@@ -491,6 +490,19 @@ def _drop_event_guards() -> None:
         op.execute("DROP FUNCTION IF EXISTS magvault_event_append_only()")
 
 
+# The catalogue as first seeded (DESIGN.md section 3), frozen here: a migration must not change
+# with later edits of magvault.catalogue; later changes are migrations of their own.
+_SEED_KINDS_0001 = (
+    ('ordering', 'Magnetic ordering of pyrrhotite', (585.0, 605.0), (540.0, 650.0), ('thermomagnetic', 'susceptibility', 'resonance', 'diffraction', 'calorimetry'), 'pyrrhotite', 'Ferrimagnetic ordering; remarkably insensitive to composition.'),
+    ('low-t', 'Low-temperature transition of 4C pyrrhotite', (30.0, 34.0), (20.0, 45.0), ('thermomagnetic', 'susceptibility', 'resonance', 'calorimetry', 'hysteresis'), 'pyrrhotite (4C)', 'Belongs to 4C-bearing pyrrhotite near Fe7S8; absent in troilite.'),
+    ('spin-reorientation', 'Spin reorientation of troilite', (410.0, 450.0), (380.0, 462.0), ('thermomagnetic', 'susceptibility', 'resonance', 'diffraction'), 'troilite', ''),
+    ('vacancy-order', 'Vacancy order-disorder of pyrrhotite', (470.0, 500.0), (455.0, 535.0), ('diffraction', 'calorimetry', 'resonance', 'susceptibility', 'thermomagnetic'), 'pyrrhotite', ''),
+    ('verwey', 'Verwey transition of magnetite', (118.0, 125.0), (95.0, 145.0), ('thermomagnetic', 'susceptibility', 'calorimetry', 'resonance'), 'magnetite', ''),
+    ('magnetite-curie', 'Curie temperature of magnetite', (845.0, 860.0), (800.0, 900.0), ('thermomagnetic', 'susceptibility'), 'magnetite', ''),
+    ('morin', 'Morin transition of hematite', (250.0, 260.0), (225.0, 280.0), ('thermomagnetic', 'susceptibility'), 'hematite', ''),
+)
+
+
 def _seed_transition_kinds() -> None:
     table = sa.table("transition_kind", sa.column("id", sa.String), sa.column("name", sa.String),
                      sa.column("typical_lo_k", sa.Float), sa.column("typical_hi_k", sa.Float),
@@ -498,7 +510,7 @@ def _seed_transition_kinds() -> None:
                      sa.column("run_kinds", sa.JSON), sa.column("mineral", sa.String),
                      sa.column("note", sa.Text), sa.column("seeded", sa.Boolean))
     op.bulk_insert(table, [
-        {"id": k.id, "name": k.name, "typical_lo_k": k.typical_K[0], "typical_hi_k": k.typical_K[1],
-         "window_lo_k": k.window_K[0], "window_hi_k": k.window_K[1], "run_kinds": list(k.run_kinds),
-         "mineral": k.mineral, "note": k.note, "seeded": True}
-        for k in SEED_KINDS])
+        {"id": kid, "name": name, "typical_lo_k": typical[0], "typical_hi_k": typical[1],
+         "window_lo_k": window[0], "window_hi_k": window[1], "run_kinds": list(run_kinds),
+         "mineral": mineral, "note": note, "seeded": True}
+        for kid, name, typical, window, run_kinds, mineral, note in _SEED_KINDS_0001])
