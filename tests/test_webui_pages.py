@@ -270,7 +270,7 @@ def test_supersede_points_to_the_replacing_run(site):
     assert f'Superseded by <a href="/run/{new}">run {new}</a>' in _get(c, f"/run/{old}")
 
 
-def test_derive_action_is_offered_for_analysed_kinds_only(site):
+def test_derive_action_is_offered_on_the_run_page(site):
     app, made = site
     vault = app.extensions["magvault"]
     c = app.test_client()
@@ -279,13 +279,18 @@ def test_derive_action_is_offered_for_analysed_kinds_only(site):
     _post(c, f"/run/{made.thermo_run}/derive", {}, f"/run/{made.thermo_run}")
     derived = text_of(_get(c, f"/run/{made.thermo_run}"))
     assert vault.derivations(made.thermo_run) and "version" in derived
-    # A kind with no analysis yet: the page says so rather than offering a button that does nothing.
+    # A resonance run (a spectrum of one block here) is offered the same action.
     csv = "Frequency (kHz),Amplitude (V)\n" + "".join(
         f"{f / 10},{1 / (1 + (f / 10 - 500) ** 2):.5f}\n" for f in range(4900, 5100))
-    rus = vault.ingest(data=csv.encode(), source_name="rus.csv", specimen=made.piece, kind="resonance")
+    rus = vault.ingest(data=csv.encode(), source_name="rus.csv", specimen=made.piece, kind="resonance",
+                       overrides=["temperature=300 K"])
+    assert f'action="/run/{rus.run_id}/derive"' in _get(c, f"/run/{rus.run_id}")
+    _post(c, f"/run/{rus.run_id}/derive", {}, f"/run/{rus.run_id}")
     page = _get(c, f"/run/{rus.run_id}")
-    assert f'action="/run/{rus.run_id}/derive"' not in page
-    assert "no analysis for resonance runs yet" in text_of(page)
+    per_block = page[page.index('id="per-block"'):]
+    n = len(vault.results(run=rus.run_id))
+    assert n and f"Values per temperature block ({n})" in text_of(per_block)
+    assert "frequency_Hz" in per_block and "300 K" in text_of(per_block)
 
 
 # --- bench ---------------------------------------------------------------------------------------

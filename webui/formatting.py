@@ -347,3 +347,4 @@ def init_app(app: Flask) -> None:
     app.add_template_global(conditions, "conditions")
     app.add_template_global(scale_bar, "scale_bar")
     app.add_template_global(blank, "blank")
+    app.add_template_test(blank, "blank")  # results|selectattr("block_temperature_K", "blank")

@@ -26,7 +26,7 @@ _SIGNALS = {
                        ("moment_A_m2", "moment"), ("moment_A_m2_per_kg", "moment")),
 }
 ANALYSED_KINDS = ("thermomagnetic", "susceptibility", "hysteresis", "backfield", "diffraction",
-                  "calorimetry")
+                  "calorimetry", "resonance")
 
 
 class NothingToAnalyse(MagvaultError):
@@ -63,6 +63,10 @@ def analyse_run(run_kind: str, frame: pd.DataFrame, conditions: Mapping[str, Any
         from .calorimetry import from_series as heat_capacity_from_series
 
         return [heat_capacity_from_series(frame, conditions)]
+    if run_kind == "resonance":
+        from .resonance import from_series as resonance_from_series
+
+        return [resonance_from_series(frame, conditions)]
     return []
 
 
