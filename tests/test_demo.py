@@ -97,6 +97,18 @@ def test_primary_ordering_for_every_pyrrhotite_furnace_run(built):
     assert checked >= 10
 
 
+@pytest.mark.parametrize("other", ["calorimetry", "resonance"])
+def test_heat_capacity_and_ultrasound_find_the_magnetic_ordering(built, other):
+    """The lambda peak of Cp and the Q^-1 peak of the elastic modes sit at the magnetic ordering (the demo
+    plants one Tc per specimen for every instrument): on every specimen measured both ways the two
+    estimates coincide within 3 sigma, compared as `magvault coupled --run-kinds` does."""
+    _, _, _, vault = built
+    pairs = vault.coupled(kind="ordering", run_kinds=f"thermomagnetic,{other}")
+    both = pairs.dropna(subset=["a_K", "b_K"])
+    assert len(both) >= 3, pairs
+    assert both["coincide"].astype(bool).all(), both[["specimen", "a_K", "b_K", "sigma"]]
+
+
 @pytest.mark.parametrize("mode", ["earliest", "treatment", "collection", "trend"])
 def test_low_t_shifts_flag_what_the_manifest_plants(built, mode):
     _, manifest, _, vault = built
