@@ -154,3 +154,26 @@ def test_two_hundred_decimated_curves_stay_under_two_megabytes():
 
 def test_user_text_cannot_open_markup_or_template_fields_in_plot_text():
     assert ef.esc("<b onclick=x>%{y}</b>\nnext") == "&lt;b onclick=x&gt;&#37;{y}&lt;/b&gt;<br>next"
+
+
+def test_scaled_curves_of_one_quantity_share_its_symbol_on_the_axis():
+    """M per kg beside M (a specimen without a mass), or Cp per mol beside per kg: once each curve is
+    scaled they are one quantity and the axis says so; unscaled, or M beside chi, they are not."""
+    from types import SimpleNamespace
+
+    from webui.views.overlay import axis_quantity, axis_title
+
+    def params(run_kind, norm):
+        return SimpleNamespace(run_kind=run_kind, norm=norm, ref_T=20.0, y="curve")
+
+    p = params("thermomagnetic", "max")
+    column, mixed = axis_quantity({"moment_A_m2", "moment_A_m2_per_kg"}, p, None)
+    assert (column, mixed) == ("moment_A_m2_per_kg", False) and axis_title(column, p, mixed) == "M / max|M|"
+    p = params("calorimetry", "reference")
+    column, mixed = axis_quantity({"heat_capacity_J_per_kg_K", "heat_capacity_J_per_mol_K"}, p, None)
+    assert axis_title(column, p, mixed) == "Cp / Cp(20 K)"
+    p = params("thermomagnetic", "max")
+    assert axis_quantity({"moment_A_m2", "chi_vol"}, p, None)[1] is True
+    assert axis_title(*axis_quantity({"moment_A_m2", "chi_vol"}, p, None)[:1], p, True) == "signal / max|signal|"
+    p = params("thermomagnetic", "none")
+    assert axis_quantity({"moment_A_m2", "moment_A_m2_per_kg"}, p, "moment_A_m2_per_kg") == ("moment_A_m2_per_kg", True)

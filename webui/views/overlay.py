@@ -201,6 +201,18 @@ def y_column(series: pd.DataFrame, run_kind: str, wanted: str | None) -> str | N
     return next((c for c in Y_COLUMNS[run_kind] if c in series.columns), None)
 
 
+def axis_quantity(used: set[str], params: OverlayParams, fixed_column: str | None) -> tuple[str | None, bool]:
+    """(the column the y axis is named after, whether the curves show different quantities).
+
+    Curves of one quantity in different normalisations (M per kg and M, Cp per mol and
+    per kg) share a symbol once each is scaled; unscaled, they are different columns.
+    """
+    mixed = len({SYMBOLS.get(c, c).lower() for c in used}) > 1 or (len(used) > 1 and params.norm == "none")
+    if used and not mixed:
+        return next((c for c in Y_COLUMNS[params.run_kind] if c in used), sorted(used)[0]), False
+    return fixed_column, mixed
+
+
 def axis_title(column: str | None, params: OverlayParams, mixed: bool) -> str:
     sym = "signal" if mixed or column is None else SYMBOLS.get(column, column)
     if params.norm == "max":
@@ -427,8 +439,7 @@ def build(v, params: OverlayParams, chosen: Chosen, ctx: dict[str, Any]) -> dict
                                    "; ".join(texts) or f"no derived {kind_label} on this branch"))
 
     webgl = len(curves) > WEBGL_CURVES or n_drawn > WEBGL_POINTS
-    mixed = len(used_columns) > 1
-    column = next(iter(used_columns)) if len(used_columns) == 1 else fixed_column
+    column, mixed = axis_quantity(used_columns, params, fixed_column)
     figure = None
     if curves:
         x_range = (lo, hi) if lo is not None and hi is not None else None
