@@ -225,3 +225,56 @@ def test_many_runs_series_are_read_at_once_newest_version_first(vault, curve):
     pd.testing.assert_frame_equal(got[first], vault.series(first))
     pd.testing.assert_frame_equal(got[second], corrected)
     assert vault.series(second, version=1)["temperature_K"].iloc[0] + 0.5 == got[second]["temperature_K"].iloc[0]
+
+
+_KILLED_IMPORT = """
+import sys, time
+import magvault
+from magvault.services import runs
+
+url, path, flag = sys.argv[1:4]
+original = runs.store_series
+
+def stalled(*args, **kwargs):
+    # Raw bytes and run are written, the transaction is open: say so, then wait to be killed.
+    open(flag, "w").close()
+    time.sleep(60)
+    return original(*args, **kwargs)
+
+runs.store_series = stalled
+with magvault.open(url) as vault:
+    vault.ingest(path, specimen="K1", kind="thermomagnetic")
+"""
+
+
+def test_an_import_killed_mid_write_leaves_nothing_and_the_same_bytes_import_afterwards(db_url, curve, tmp_path):
+    """DESIGN.md section 8: a killed import leaves no partial state; re-importing the bytes is recognised."""
+    import signal
+    import subprocess
+    import sys
+    import time
+
+    with magvault.open(db_url) as vault:
+        vault.add_specimen("K1")
+        before = snapshot(vault)
+    flag = tmp_path / "inside-the-transaction"
+    child = subprocess.Popen([sys.executable, "-c", _KILLED_IMPORT, db_url, str(curve), str(flag)])
+    try:
+        deadline = time.monotonic() + 60
+        while not flag.exists():
+            assert child.poll() is None, "the import ended before reaching its write"
+            assert time.monotonic() < deadline, "the import never reached its write"
+            time.sleep(0.05)
+        child.send_signal(signal.SIGKILL)
+        child.wait(timeout=30)
+    finally:
+        if child.poll() is None:
+            child.kill()
+    with magvault.open(db_url) as vault:
+        assert snapshot(vault) == before
+        first = vault.ingest(curve, specimen="K1", kind="thermomagnetic")
+        assert not first.reused_bytes  # nothing of the killed import survived
+        with pytest.raises(Duplicate):
+            vault.ingest(curve, specimen="K1", kind="thermomagnetic")
+        after = snapshot(vault)
+        assert after["run"] == before["run"] + 1 and after["raw_file"] == before["raw_file"] + 1
