@@ -458,6 +458,18 @@ class Vault:
             return derive.results_frame(s, specimen=specimen, run=_run_id(run) if run else None,
                                         quantity=quantity, all_versions=all_versions)
 
+    def block_tracks(self, run_id: int) -> pd.DataFrame:
+        """A run's per-temperature-block results as tracks (quantity, track, block_temperature_K, value...).
+
+        Resonance runs give frequency_Hz and inverse_Q per mode; loops at several
+        temperatures give Hc, Ms... per block.  Empty when the run has no block results.
+        """
+        from .services import derive
+
+        with self.read() as s:
+            run_service.get_run(s, _run_id(run_id))
+            return derive.block_tracks_frame(s, _run_id(run_id))
+
     def derive(self, run: int | None = None, *, all: bool = False) -> dict[str, Any]:  # noqa: A002
         """Run the analyses on one run (``run=ID``) or on every current run (``all=True``).
 

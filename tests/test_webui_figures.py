@@ -244,3 +244,29 @@ def test_no_scale_bar_without_a_pixel_size():
     assert formatting.scale_bar(None, 100) is None
     assert formatting.scale_bar(1e-6, None) is None
     assert formatting.scale_bar(0.0, 100) is None
+
+
+def test_block_tracks_draw_the_modulus_and_damping_with_the_transition_marked():
+    """Per-block resonance results: f^2 relative to the lowest block (proportional to the elastic
+    modulus, Migliori & Sarrao 1997) with its uncertainty doubled in relative terms, Q^-1 in units of
+    1e-3, FWHM left out beside Q^-1, and the primary transition as a vertical line."""
+    T = np.array([300.0, 400.0, 500.0, 590.0])
+    f = np.array([400e3, 396e3, 392e3, 380e3])
+    rows = []
+    for t, fi in zip(T, f):
+        rows += [("frequency_Hz", "mode 1", t, fi, 1.0, "Hz", "lorentzian-fit"),
+                 ("inverse_Q", "mode 1", t, 3e-4 if t < 590 else 8e-4, 1e-5, "1", "lorentzian-fit"),
+                 ("fwhm_Hz", "mode 1", t, 0.3 * fi * 1e-3, 2.0, "Hz", "lorentzian-fit")]
+    tracks = pd.DataFrame(rows, columns=["quantity", "track", "block_temperature_K", "value", "uncertainty",
+                                         "unit", "method"])
+    panels = figures.track_panels(tracks, [{"kind": "ordering", "temperature_K": 588.0, "primary": True},
+                                           {"kind": "ordering", "temperature_K": 570.0, "primary": False}])
+    assert [p.title for p in panels] == ["Resonance frequency squared", "Damping Q⁻¹ = FWHM / f"]
+    f2, damping = (_figure(p) for p in panels)
+    y = _array(f2["data"][0]["y"])
+    np.testing.assert_allclose(y, (f / f[0]) ** 2, rtol=1e-12)
+    np.testing.assert_allclose(_array(f2["data"][0]["error_y"]["array"]), 2 * y * 1.0 / f, rtol=1e-12)
+    np.testing.assert_allclose(_array(damping["data"][0]["y"]), [0.3, 0.3, 0.3, 0.8], rtol=1e-12)
+    lines = [s for s in f2["layout"]["shapes"] if s.get("type") == "line"]
+    assert [round(s["x0"], 6) for s in lines] == [588.0]
+    assert figures.track_panels(tracks[tracks["block_temperature_K"] < 400]) == []  # too few temperatures

@@ -293,6 +293,26 @@ def test_derive_action_is_offered_on_the_run_page(site):
     assert "frequency_Hz" in per_block and "300 K" in text_of(per_block)
 
 
+def test_a_resonance_run_with_blocks_draws_its_tracks_against_temperature(site):
+    """Three temperature blocks of one Lorentzian mode softening with temperature: the run page draws
+    f^2 and Q^-1 against block temperature from the derived per-block results."""
+    app, made = site
+    vault = app.extensions["magvault"]
+    c = app.test_client()
+    text = ""
+    for t, f0 in ((300, 500.0), (350, 498.0), (400, 495.0)):
+        text += f"[block temperature = {t} K]\nf (kHz)  amplitude (V)\n"
+        text += "".join(f"{f0 + d / 100:.2f}  {0.002 + 0.3 / (1 + ((d / 100) / 0.1) ** 2):.6f}\n"
+                        for d in range(-150, 151, 2)) + "\n"
+    run = vault.ingest(data=text.encode(), source_name="rus_blocks.txt", specimen=made.piece, kind="resonance")
+    _post(c, f"/run/{run.run_id}/derive", {}, f"/run/{run.run_id}")
+    tracks = vault.block_tracks(run.run_id)
+    assert sorted(tracks["block_temperature_K"].unique()) == [300.0, 350.0, 400.0]
+    page = _get(c, f"/run/{run.run_id}")
+    assert "Across the temperature blocks" in page and 'data-figure="plot-track-0"' in page
+    assert "Resonance frequency squared" in page
+
+
 # --- bench ---------------------------------------------------------------------------------------
 
 def test_bench_shows_the_safety_cautions(site):

@@ -249,6 +249,69 @@ def run_panels(series: pd.DataFrame, kind: str, mapping: Sequence[dict[str, Any]
     return panels
 
 
+#: Per-block quantities drawn against temperature first, with how each is shown.
+TRACK_ORDER = ("frequency_Hz", "inverse_Q", "Hc", "Ms", "Mr_Ms", "fwhm_Hz")
+MIN_TRACK_POINTS = 3
+MAX_TRACK_PANELS = 4
+
+
+def track_panels(tracks: pd.DataFrame, transitions: Sequence[dict[str, Any]] = ()) -> list[Panel]:
+    """Figures of a run's per-block results against temperature, one per quantity, one trace per track.
+
+    A resonance frequency is drawn as (f / f(T0))^2, T0 the lowest block of its mode:
+    f^2 is proportional to the elastic modulus (Migliori & Sarrao 1997), so softening
+    shows directly.  Quantities with fewer than three temperatures are left out.  The
+    run's primary transitions are drawn as dashed vertical lines named by kind.
+    """
+    if tracks is None or tracks.empty:
+        return []
+    counts = tracks.groupby("quantity")["block_temperature_K"].nunique()
+    wanted = [q for q in counts.index if counts[q] >= MIN_TRACK_POINTS]
+    if "inverse_Q" in wanted and "fwhm_Hz" in wanted:
+        wanted.remove("fwhm_Hz")  # Q^-1 = FWHM / f says the same, free of the mode's frequency
+    wanted.sort(key=lambda q: (TRACK_ORDER.index(q) if q in TRACK_ORDER else len(TRACK_ORDER), q))
+    marks = [t for t in transitions if t.get("primary") and t.get("temperature_K") is not None]
+    panels = []
+    for quantity in wanted[:MAX_TRACK_PANELS]:
+        rows = tracks[tracks["quantity"] == quantity]
+        unit = str(rows["unit"].iloc[0] or "")
+        scale = 1.0
+        if quantity == "frequency_Hz":
+            y_title, title = "(f / f(T₀))²  ∝ elastic modulus", "Resonance frequency squared"
+        elif quantity == "inverse_Q":
+            scale, y_title, title = 1e3, "Q⁻¹ (× 10⁻³)", "Damping Q⁻¹ = FWHM / f"
+        else:
+            y_title = f"{quantity} ({unit_text(unit)})" if unit and unit != "1" else quantity
+            title = quantity
+        fig = go.Figure(layout=_layout(title, "Block temperature (K)", y_title, None, "none", "power",
+                                       legend_rows=1 if rows["track"].nunique() > 1 else 0))
+        n = 0
+        for i, (track, part) in enumerate(rows.groupby(rows["track"].fillna(""), sort=True)):
+            part = part.sort_values("block_temperature_K")
+            T = part["block_temperature_K"].to_numpy(dtype=float)
+            y = part["value"].to_numpy(dtype=float)
+            u = part["uncertainty"].to_numpy(dtype=float)
+            if quantity == "frequency_Hz":
+                y0 = y[0]
+                u = 2.0 * (y / y0) ** 2 * u / y  # relative uncertainty of f^2 is twice that of f
+                y = (y / y0) ** 2
+            y, u = y * scale, u * scale
+            fig.add_trace(go.Scatter(x=T, y=y, name=track or None, showlegend=bool(track), mode="lines+markers",
+                                     marker=dict(size=6, color=PALETTE[i % len(PALETTE)]),
+                                     line=dict(width=1.4, color=PALETTE[i % len(PALETTE)]),
+                                     error_y=dict(type="data", array=np.nan_to_num(u), visible=True, thickness=1),
+                                     hovertemplate=(f"{track + ': ' if track else ''}%{{x:.4g}} K<br>"
+                                                    f"{_short(y_title)}: %{{y:.6g}}<extra></extra>")))
+            n += len(T)
+        for t in marks:
+            fig.add_vline(x=float(t["temperature_K"]), line=dict(color="#8c3b5a", width=1.2, dash="dash"),
+                          annotation=dict(text=str(t.get("kind", "")), font=dict(size=11, color="#8c3b5a")),
+                          annotation_position="top")
+        panels.append(Panel(key=f"track-{len(panels)}", title=title, figure_json=fig.to_json(), n_points=n,
+                            n_shown=n, webgl=False, note="one point per temperature block, ± standard uncertainty"))
+    return panels
+
+
 def _short(title: str) -> str:
     return title.split(" [")[0]
 
@@ -266,4 +329,4 @@ def axis_titles(figure_json: str) -> tuple[str, str]:
     return layout["xaxis"]["title"]["text"], layout["yaxis"]["title"]["text"]
 
 
-__all__ = ["run_panels", "Panel", "choose_axes", "decimate", "script_json", "unit_text", "axis_titles"]
+__all__ = ["run_panels", "track_panels", "Panel", "choose_axes", "decimate", "script_json", "unit_text", "axis_titles"]

@@ -179,6 +179,25 @@ def results_frame(session: Session, *, specimen: str | None = None, run: int | N
                       bools=("current",))
 
 
+BLOCK_TRACK_COLUMNS = ["quantity", "track", "block_temperature_K", "value", "uncertainty", "unit", "method"]
+
+
+def block_tracks_frame(session: Session, run_id: int) -> pd.DataFrame:
+    """A run's current per-block results as tracks against temperature, for plotting.
+
+    ``track`` names the series a value belongs to within its quantity (``mode 2`` for a
+    resonance mode, from the result's diagnostics), None when the quantity has one track.
+    """
+    rows = session.execute(select(Result.quantity, Result.diagnostics, Result.block_temperature_K, Result.value,
+                                  Result.uncertainty, Result.unit, Result.method)
+                           .where(Result.run_id == int(run_id), Result.current.is_(True),
+                                  Result.block_temperature_K.is_not(None))
+                           .order_by(Result.quantity, Result.block_temperature_K, Result.id)).all()
+    records = [(q, f"mode {d['mode']}" if isinstance(d, dict) and d.get("mode") is not None else None, t, v, u, unit, m)
+               for q, d, t, v, u, unit, m in rows]
+    return rows_frame(records, BLOCK_TRACK_COLUMNS, floats=("block_temperature_K", "value", "uncertainty"))
+
+
 # --- column-wise frames (listings of a hundred thousand rows do no per-row Python work) ---------
 
 def plain_rows(session: Session, statement) -> list[tuple]:

@@ -11,7 +11,7 @@ from magvault.analysis.pipeline import ANALYSED_KINDS
 from magvault.errors import MagvaultError
 
 from .. import security
-from ..figures import run_panels, script_json
+from ..figures import run_panels, script_json, track_panels
 from ..forms import DeriveForm, ImageForm, RetractForm, SupersedeForm, choices, clean, show_error
 from .common import records, vault
 
@@ -31,7 +31,9 @@ def run_context(run_id: int, *, retract_form=None, supersede_form=None, image_fo
     if latest is not None:
         panels = run_panels(v.series(run_id), doc["kind"], latest.get("mapping"),
                             max_points=int(current_app.config["MAGVAULT_PLOT_POINTS"]))
-    if panels:
+    transitions = records(v.transitions(run=run_id))
+    track_figs = track_panels(v.block_tracks(run_id), transitions)
+    if panels or track_figs:
         security.allow_plot_styles()
     siblings = v.runs(specimen=doc["specimen"])
     successors = [r for r in records(siblings) if r["id"] != run_id and r["status"] not in INACTIVE]
@@ -41,7 +43,7 @@ def run_context(run_id: int, *, retract_form=None, supersede_form=None, image_fo
          + (f", {r['source_name']}" if r.get("source_name") else "")) for r in successors])
     return dict(
         doc=doc, latest=latest, panels=panels, script_json=script_json,
-        derivations=v.derivations(run_id), transitions=records(v.transitions(run=run_id)),
+        derivations=v.derivations(run_id), transitions=transitions, track_figs=track_figs,
         results=records(v.results(run=run_id)), images=v.images(run=run_id),
         retract_form=retract_form or RetractForm(formdata=None),
         supersede_form=supersede_form, derive_form=DeriveForm(formdata=None),
