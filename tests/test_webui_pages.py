@@ -313,6 +313,21 @@ def test_a_resonance_run_with_blocks_draws_its_tracks_against_temperature(site):
     assert "Resonance frequency squared" in page
 
 
+def test_specimen_page_leads_with_primary_transitions_and_folds_the_rest(site):
+    app, made = site
+    vault = app.extensions["magvault"]
+    c = app.test_client()
+    vault.derive(run=made.thermo_run)  # real analyses: a primary row per kind and branch, and each method's
+    page = _get(c, f"/specimen/{made.piece}")
+    derived = page[page.index('id="derived"'):page.index('id="images"')]
+    rows = vault.transitions(specimen=made.piece)
+    primaries, others = int(rows["primary"].sum()), int((~rows["primary"]).sum())
+    assert primaries and others
+    assert f"Estimates by each method ({others})" in text_of(derived)
+    first_table = derived[:derived.index("Estimates by each method")]
+    assert first_table.count('<tr class="primary">') == primaries and "thermomagnetic" in first_table
+
+
 # --- bench ---------------------------------------------------------------------------------------
 
 def test_bench_shows_the_safety_cautions(site):
