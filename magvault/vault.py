@@ -557,6 +557,22 @@ class Vault:
         with self.read() as s:
             return collection.composition_points(s, kinds=kinds, branch=branch)
 
+    def loop_ratios(self, *, psd_md_hcr_hc: float = 4.0, sd_min_mr_ms: float = 0.5, md_max_mr_ms: float = 0.05,
+                    sd_max_hcr_hc: float = 1.5) -> pd.DataFrame:
+        """Every loop placed on the Day et al. (1977) plot: Mr/Ms, Hcr/Hc with uncertainties and domain labels.
+
+        The boundaries are named parameters; the Hcr/Hc limit between PSD and MD is
+        given as 4 or as 5 by different restatements of Day et al. (1977), so choose it.
+        """
+        from .services import collection
+
+        bounds = {"psd_md_hcr_hc": _positive(psd_md_hcr_hc, "psd_md_hcr_hc"),
+                  "sd_min_mr_ms": _positive(sd_min_mr_ms, "sd_min_mr_ms"),
+                  "md_max_mr_ms": _positive(md_max_mr_ms, "md_max_mr_ms"),
+                  "sd_max_hcr_hc": _positive(sd_max_hcr_hc, "sd_max_hcr_hc")}
+        with self.read() as s:
+            return collection.loop_ratios(s, boundaries=bounds)
+
     def save_query(self, name: str, query: str, parameters: dict[str, Any], *, replace: bool = False) -> None:
         """Store a query's parameters under a name (the CLI, the dashboard and notebooks share them)."""
         from .services import saved

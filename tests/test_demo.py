@@ -7,6 +7,7 @@ hand).  Building takes about half a minute, so it happens once for this module.
 from __future__ import annotations
 
 import json
+import re
 from collections import Counter
 
 import numpy as np
@@ -95,6 +96,35 @@ def test_primary_ordering_for_every_pyrrhotite_furnace_run(built):
         assert abs(r.temperature_K - p["curie_heating_K"]) <= 2 * r.uncertainty_K, file
         checked += 1
     assert checked >= 10
+
+
+def test_every_paired_loop_is_placed_on_the_day_plot_with_the_published_boxes(built):
+    """Day, Fuller & Schmidt (1977), as restated in REFERENCES.md: SD at Mr/Ms >= 0.5 and Hcr/Hc <= 1.5,
+    MD at Mr/Ms < 0.05 and Hcr/Hc above the PSD/MD limit (4 or 5: the sources differ, so it is a
+    parameter), PSD between; a point whose two ratios disagree is unclassified."""
+    from magvault.paths import part
+
+    _, _, _, vault = built
+    placed = vault.loop_ratios()
+    results = vault.results()
+    day = results[results["method"] == "day-plot"]
+    assert len(placed) == (day["quantity"] == "Mr_Ms").sum() >= 20
+    mr_ms = day[day["quantity"] == "Mr_Ms"].set_index("run")["value"]
+    for row in placed.itertuples():
+        assert row.Mr_Ms == pytest.approx(mr_ms[row.run], rel=1e-12)
+        by_mr = "SD" if row.Mr_Ms >= 0.5 else ("MD" if row.Mr_Ms < 0.05 else "PSD")
+        by_h = "SD" if row.Hcr_Hc <= 1.5 else ("MD" if row.Hcr_Hc > 4.0 else "PSD")
+        assert (row.by_mr_ms, row.by_hcr_hc) == (by_mr, by_h), row.specimen
+        assert row.domain_state == (by_mr if by_mr == by_h else "unclassified")
+    five = vault.loop_ratios(psd_md_hcr_hc=5.0)
+    changed = placed["by_hcr_hc"].to_numpy() != five["by_hcr_hc"].to_numpy()
+    assert ((placed["Hcr_Hc"] > 4.0) & (placed["Hcr_Hc"] <= 5.0)).to_numpy().tolist() == changed.tolist()
+    # The dashboard page lists each placement and draws one point per loop.
+    app = part("webui").create_app(str(vault.url), {"TESTING": True})
+    page = app.test_client().get("/loops").get_data(as_text=True)
+    assert f"{len(placed)} loops placed" in page
+    figure = json.loads(re.search(r'data-explore-figure="ratios-plot">(.*?)</script>', page, re.S).group(1))
+    assert sum(len(t["x"]) for t in figure["data"]) == len(placed)
 
 
 @pytest.mark.parametrize("other", ["calorimetry", "resonance"])

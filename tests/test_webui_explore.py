@@ -28,7 +28,7 @@ from browser.webui_data import EXPLORE_OTHER_ORIGIN, csrf_token, explore_sqlite,
 
 webui = part("webui")
 
-EXPLORE_PAGES = ["/shifts", "/overlay", "/map", "/coupled", "/saved"]
+EXPLORE_PAGES = ["/shifts", "/overlay", "/map", "/coupled", "/loops", "/saved"]
 
 
 @pytest.fixture(scope="module")

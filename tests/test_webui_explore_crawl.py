@@ -52,6 +52,8 @@ JUNK = {
         {"compare": "methods", "kind": "", "a": "planted-for-tests", "b": "planted-second"},
         {"compare": "nonsense", "kind": "nope"}, {"sigma": "abc", "branch": "cooling"},
     ],
+    "/loops": [{"psd_md": "4.5", "colour": "mood"}, {"psd_md": "nan"}, {"psd_md": "5", "colour": "origin"},
+               {"psd_md": ["4", "5"]}],
     "/saved": [{"name": "x"}],
     "/saved/open": [{}, {"name": ""}, {"name": "never"}, {"name": "odd overlay"}, {"name": "odd shifts"},
                     {"name": "odd coupled"}, {"name": "odd map"}, {"name": "loop a"}, {"name": "x" * 300}],

@@ -74,10 +74,10 @@ def create_app(db: str, test_config: dict[str, Any] | None = None) -> Flask:
     formatting.init_app(app)
 
     from .views import api, assets, bench, collection, events, images, runs, specimens
-    from .views import coupled, overlay, phase_map, saved, shifts
+    from .views import coupled, loop_ratios, overlay, phase_map, saved, shifts
 
     for module in (collection, specimens, runs, bench, images, events, api, assets,
-                   shifts, overlay, phase_map, coupled, saved):
+                   shifts, overlay, phase_map, coupled, loop_ratios, saved):
         app.register_blueprint(module.bp)
     return app
 

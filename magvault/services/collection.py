@@ -251,3 +251,41 @@ def composition_points(session: Session, *, kinds: list[str] | None, branch: str
                    else pd.DataFrame(columns=columns).astype({"temperature_K": float, "uncertainty_K": float}))
     comp = specimen_table(session, None)
     return shape_map(transitions, comp)
+
+
+LOOP_RATIO_COLUMNS = ["specimen", "run", "block_temperature_K", "Mr_Ms", "Mr_Ms_uncertainty", "Hcr_Hc",
+                      "Hcr_Hc_uncertainty", "by_mr_ms", "by_hcr_hc", "domain_state", "origin"]
+
+
+def loop_ratios(session: Session, *, boundaries: dict[str, float] | None = None) -> pd.DataFrame:
+    """Every current Day-plot placement (Mr/Ms and Hcr/Hc of a loop and its backfield run) of active runs.
+
+    One row per derivation, labelled by :func:`magvault.analysis.hysteresis.domain_state`
+    with ``boundaries`` (its keyword arguments; Day, Fuller & Schmidt 1977 by default),
+    so that a page can redraw the boxes with another PSD/MD limit and keep its labels true.
+    """
+    from ..analysis.hysteresis import domain_state
+    from ..store.models import Result
+
+    rows = session.execute(
+        select(Result.derivation_id, Specimen.code, Result.run_id, Result.block_temperature_K, Result.quantity,
+               Result.value, Result.uncertainty, Origin.name)
+        .join(Run, Run.id == Result.run_id).join(Specimen, Specimen.id == Result.specimen_id)
+        .outerjoin(Origin, Origin.id == Specimen.origin_id)
+        .where(Result.method == "day-plot", Result.current.is_(True), Result.quantity.in_(("Mr_Ms", "Hcr_Hc")),
+               Run.status.not_in(INACTIVE_STATUSES))
+        .order_by(Specimen.code, Result.run_id, Result.derivation_id)).all()
+    placed: dict[int, dict[str, Any]] = {}
+    for derivation, code, run, block, quantity, value, u, origin in rows:
+        row = placed.setdefault(derivation, {"specimen": code, "run": run, "block_temperature_K": block,
+                                             "origin": origin})
+        row[quantity], row[f"{quantity}_uncertainty"] = value, u
+    out = []
+    for row in placed.values():
+        if row.get("Mr_Ms") is None or row.get("Hcr_Hc") is None:
+            continue
+        out.append({**row, **domain_state(row["Mr_Ms"], row["Hcr_Hc"], **(boundaries or {}))})
+    frame = pd.DataFrame.from_records(out, columns=LOOP_RATIO_COLUMNS)
+    for c in ("block_temperature_K", "Mr_Ms", "Mr_Ms_uncertainty", "Hcr_Hc", "Hcr_Hc_uncertainty"):
+        frame[c] = pd.to_numeric(frame[c], errors="coerce").astype(float)
+    return frame

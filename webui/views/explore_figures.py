@@ -348,3 +348,54 @@ def coupled_figure(points: Sequence[PairPoint], *, a_label: str, b_label: str) -
 __all__ = ["OverlayCurve", "OverlayMarker", "Colouring", "OverlayFigure", "overlay_figure", "ShiftPoint",
            "FitLine", "shift_figure", "MapPoint", "map_figure", "PairPoint", "coupled_figure", "esc",
            "continuous_colour", "category_colours", "base_layout", "SEQUENTIAL"]
+
+
+# --- loop ratios (the Day plot) ----------------------------------------------------------------
+
+@dataclass(frozen=True)
+class RatioPoint:
+    group: str
+    mr_ms: float
+    mr_ms_u: float | None
+    hcr_hc: float
+    hcr_hc_u: float | None
+    href: str
+    hover: str
+
+
+def ratio_figure(points: Sequence[RatioPoint], groups: Sequence[str], *, sd_min_mr_ms: float,
+                 md_max_mr_ms: float, sd_max_hcr_hc: float, psd_md_hcr_hc: float) -> str:
+    """Mr/Ms against Hcr/Hc on logarithmic axes with the Day et al. (1977) boundaries as dashed lines."""
+    xs = [p.hcr_hc for p in points] + [1.0, psd_md_hcr_hc * 1.6]
+    ys = [p.mr_ms for p in points] + [md_max_mr_ms * 0.6, 0.6]
+    x_range = [np.log10(min(xs) * 0.9), np.log10(max(xs) * 1.1)]
+    y_range = [np.log10(min(ys) * 0.9), np.log10(max(ys) * 1.1)]
+    layout = base_layout("Hcr / Hc", "Mr / Ms", height=480)
+    ticks = [0.01, 0.02, 0.05, 0.1, 0.2, 0.5, 1, 1.5, 2, 3, 4, 5, 7, 10, 20, 50]
+    layout["xaxis"].update(type="log", range=x_range, tickvals=ticks, ticktext=[f"{t:g}" for t in ticks])
+    layout["yaxis"].update(type="log", range=y_range, tickvals=ticks, ticktext=[f"{t:g}" for t in ticks])
+    fig = go.Figure(layout=layout)
+    line = dict(color=FIT, width=1.2, dash="dash")
+    for y in (sd_min_mr_ms, md_max_mr_ms):
+        fig.add_shape(type="line", xref="paper", x0=0, x1=1, y0=y, y1=y, line=line)
+    for x in (sd_max_hcr_hc, psd_md_hcr_hc):
+        fig.add_shape(type="line", yref="paper", x0=x, x1=x, y0=0, y1=1, line=line)
+    # Each box named just inside its corner on the boundaries, where points rarely sit.
+    for text, x, y, xa, ya in (("SD", sd_max_hcr_hc / 1.04, sd_min_mr_ms * 1.04, "right", "bottom"),
+                               ("PSD", sd_max_hcr_hc * 1.04, md_max_mr_ms * 1.04, "left", "bottom"),
+                               ("MD", psd_md_hcr_hc * 1.04, md_max_mr_ms / 1.04, "left", "top")):
+        fig.add_annotation(x=np.log10(x), y=np.log10(y), text=text, showarrow=False, xanchor=xa, yanchor=ya,
+                           font=dict(color=FIT, size=13))
+    colours = category_colours(groups, missing="unclassified")
+    for g in groups:
+        group = [p for p in points if p.group == g]
+        if not group:
+            continue
+        fig.add_trace(go.Scatter(
+            x=[p.hcr_hc for p in group], y=[p.mr_ms for p in group], mode="markers", name=esc(g),
+            marker=dict(color=colours[g], size=8, line=dict(color="#ffffff", width=1)),
+            error_x=dict(type="data", array=[p.hcr_hc_u or 0.0 for p in group], color=colours[g], thickness=1.1),
+            error_y=dict(type="data", array=[p.mr_ms_u or 0.0 for p in group], color=colours[g], thickness=1.1),
+            customdata=[p.href for p in group], hovertext=[esc(p.hover) for p in group],
+            hovertemplate="%{hovertext}<extra></extra>"))
+    return fig.to_json()

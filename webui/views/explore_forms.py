@@ -117,6 +117,14 @@ class CoupledForm(GetForm):
                          description="|B − A| below this many σ")
 
 
+class LoopRatiosForm(GetForm):
+    psd_md = SelectField("PSD/MD limit of Hcr/Hc", choices=choices([("4", "4 (as usually recalled)"),
+                                                                    ("5", "5 (as restated in some texts)")]),
+                         validate_choice=False, description="Day et al. (1977); sources differ")
+    colour = SelectField("Colour by", choices=choices([("state", "domain state"), ("origin", "origin")]),
+                         validate_choice=False)
+
+
 @id_prefix("save")
 class SaveQueryForm(FlaskForm):
     page = HiddenField()
